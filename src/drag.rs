@@ -1,0 +1,1 @@
+//! Placeholder: drag of a sphere (filled in by the drag/water work).

@@ -1,0 +1,12 @@
+//! trapwise calibrates optical traps from recordings of a trapped bead's thermal motion.
+//!
+//! The numerical core (`recording`, `water`, `drag`, `spectrum`, `autocorrelation`,
+//! `equipartition`, `calibration`, `findings`, `simulate`) is pure: it takes plain data and
+//! returns plain data, and imports no IO, async or HTTP crate. Around it sit `ingest`
+//! (file formats), `report` (wire types and text summaries) and `cli`.
+
+pub mod autocorrelation;
+pub mod drag;
+pub mod ingest;
+pub mod recording;
+pub mod water;

@@ -1,0 +1,1 @@
+//! Placeholder: water properties (filled in by the drag/water work).
