@@ -9,4 +9,6 @@ pub mod autocorrelation;
 pub mod drag;
 pub mod ingest;
 pub mod recording;
+pub mod simulate;
+pub mod spectrum;
 pub mod water;

@@ -1,0 +1,487 @@
+//! Maximum-likelihood fit of a spectrum model to a blocked periodogram, and the analytic
+//! weighted least-squares fit of a plain Lorentzian used for starting values.
+
+use super::model::{FilterSetting, Params, SpectrumModel};
+use super::{Block, Periodogram, block_periodogram};
+use argmin::core::{CostFunction, Executor};
+use argmin::solver::neldermead::NelderMead;
+use statrs::distribution::{ChiSquared, ContinuousCDF};
+use std::f64::consts::PI;
+
+/// Frequency range of the fit, Hz; `None` takes the default.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct FitRange {
+    /// Lowest frequency fitted. Default: the larger of 10 Hz and 4 resolution steps, which keeps
+    /// out the lowest bins where drift and stage vibration live (common practice).
+    pub f_min_hz: Option<f64>,
+    /// Highest frequency fitted. Default: 0.8 f_Nyquist, or 0.98 f_Nyquist when the detector
+    /// filter is modelled. Aliasing is modelled exactly, so the top bins are only left out
+    /// because unmodelled detector and anti-alias filtering bite there first (common practice).
+    pub f_max_hz: Option<f64>,
+}
+
+/// Options of the spectral fit.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SpectrumFitOptions {
+    /// The model to fit.
+    pub model: SpectrumModel,
+    /// The frequency range.
+    pub range: FitRange,
+    /// Minimum periodogram bins per block (default 32: block means are then close to Gaussian
+    /// and the chi-square goodness of fit is meaningful).
+    pub min_bins_per_block: usize,
+    /// About how many blocks to form (default 120).
+    pub target_blocks: usize,
+    /// Periodogram bins left out of the fit (narrow peaks such as mains pickup).
+    pub excluded_bins: Vec<usize>,
+}
+
+impl SpectrumFitOptions {
+    /// Default options for a model.
+    pub fn new(model: SpectrumModel) -> Self {
+        SpectrumFitOptions {
+            model,
+            range: FitRange::default(),
+            min_bins_per_block: 32,
+            target_blocks: 120,
+            excluded_bins: Vec::new(),
+        }
+    }
+
+    /// The fit range actually used for this periodogram, (f_min, f_max) in Hz.
+    pub fn resolved_range(&self, periodogram: &Periodogram) -> (f64, f64) {
+        let nyquist = periodogram.sample_rate_hz / 2.0;
+        let f_min = self
+            .range
+            .f_min_hz
+            .unwrap_or_else(|| (4.0 * periodogram.resolution_hz()).max(10.0));
+        let default_max = match self.model.filter {
+            FilterSetting::None => 0.8 * nyquist,
+            _ => 0.98 * nyquist,
+        };
+        let f_max = self.range.f_max_hz.unwrap_or(default_max).min(nyquist);
+        (f_min, f_max)
+    }
+}
+
+/// Result of the spectral fit. Standard errors come from the inverse Fisher information of the
+/// Whittle likelihood at the optimum.
+#[derive(Clone, Debug)]
+pub struct SpectrumFit {
+    /// Corner frequency fc, Hz, and its standard error.
+    pub corner_frequency_hz: f64,
+    pub corner_frequency_se_hz: f64,
+    /// Diffusion coefficient D, signal-units^2/s (one-sided convention, see the module docs),
+    /// and its standard error.
+    pub diffusion: f64,
+    pub diffusion_se: f64,
+    /// Correlation coefficient between the estimates of fc and D.
+    pub correlation_fc_diffusion: f64,
+    /// Fitted detector filter: (f3dB Hz, its SE, alpha, its SE), when the filter was fitted.
+    pub fitted_filter: Option<FittedFilter>,
+    /// The fitted parameter vector (log space, see `model`), and its covariance.
+    pub theta: Vec<f64>,
+    pub covariance: Vec<Vec<f64>>,
+    /// Chi-square sum_b n_b (P_b - S_b)^2 / S_b^2, its degrees of freedom and the upper-tail
+    /// p-value of the chi-square distribution.
+    pub chi_square: f64,
+    pub degrees_of_freedom: usize,
+    pub p_value: f64,
+    /// Fit range used, Hz.
+    pub f_min_hz: f64,
+    pub f_max_hz: f64,
+    /// The blocks fitted, and the model's block means at the optimum (for plots and residuals).
+    pub blocks: Vec<Block>,
+    pub model_psd: Vec<f64>,
+    /// Iterations of Fisher scoring used.
+    pub iterations: usize,
+}
+
+/// A fitted photodiode filter with standard errors.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct FittedFilter {
+    pub f3db_hz: f64,
+    pub f3db_se_hz: f64,
+    pub alpha: f64,
+    pub alpha_se: f64,
+}
+
+/// Why a spectrum could not be fitted.
+#[derive(Clone, Debug, PartialEq, thiserror::Error)]
+pub enum SpectrumFitError {
+    /// The fit range holds too few blocks to fit the parameters.
+    #[error(
+        "the fit range {f_min_hz:.1}-{f_max_hz:.1} Hz holds {n_blocks} spectral blocks, too few to fit {n_params} parameters; widen the range or record longer"
+    )]
+    TooFewBlocks {
+        f_min_hz: f64,
+        f_max_hz: f64,
+        n_blocks: usize,
+        n_params: usize,
+    },
+    /// The fit range is empty or inverted.
+    #[error(
+        "the fit range {f_min_hz:.1}-{f_max_hz:.1} Hz is empty; the upper limit must exceed the lower and stay below the Nyquist frequency"
+    )]
+    EmptyRange { f_min_hz: f64, f_max_hz: f64 },
+    /// The likelihood could not be maximised (no finite optimum found).
+    #[error("the spectral fit did not converge: {reason}")]
+    NoConvergence { reason: String },
+}
+
+/// Negative Whittle log-likelihood of blocked periodogram data (Whittle, Ark. Mat. 2, 423 (1953)
+/// (citation from memory, unverified); for block means of n exponential ordinates it is the
+/// Gamma log-likelihood up to constants): L = sum_b n_b [ln S_b + P_b / S_b].
+struct Whittle<'a> {
+    model: &'a SpectrumModel,
+    blocks: &'a [Block],
+}
+
+impl Whittle<'_> {
+    fn model_means(&self, p: &Params) -> Vec<f64> {
+        self.blocks
+            .iter()
+            .map(|b| self.model.block_mean(b.lower_hz, b.upper_hz, p))
+            .collect()
+    }
+
+    fn cost_at(&self, theta: &[f64]) -> f64 {
+        let p = self.model.decode(theta);
+        let mut total = 0.0;
+        for b in self.blocks {
+            let s = self.model.block_mean(b.lower_hz, b.upper_hz, &p);
+            if !(s.is_finite() && s > 0.0) {
+                return f64::INFINITY;
+            }
+            total += b.n_averaged as f64 * (s.ln() + b.psd / s);
+        }
+        total
+    }
+
+    /// d ln S_b / d theta by central differences (step 1e-5 in log space), for every block.
+    fn log_derivatives(&self, theta: &[f64]) -> Vec<Vec<f64>> {
+        let h = 1e-5;
+        let n = theta.len();
+        let mut out = vec![vec![0.0; n]; self.blocks.len()];
+        let mut t = theta.to_vec();
+        for i in 0..n {
+            t[i] = theta[i] + h;
+            let up = self.model_means(&self.model.decode(&t));
+            t[i] = theta[i] - h;
+            let down = self.model_means(&self.model.decode(&t));
+            t[i] = theta[i];
+            for (b, row) in out.iter_mut().enumerate() {
+                row[i] = (up[b].ln() - down[b].ln()) / (2.0 * h);
+            }
+        }
+        out
+    }
+}
+
+impl CostFunction for Whittle<'_> {
+    type Param = Vec<f64>;
+    type Output = f64;
+
+    fn cost(&self, theta: &Self::Param) -> Result<Self::Output, argmin::core::Error> {
+        Ok(self.cost_at(theta))
+    }
+}
+
+/// Solves the small symmetric positive-definite system `a x = b` (Cholesky via nalgebra).
+pub(crate) fn solve_spd(a: &[Vec<f64>], b: &[f64]) -> Option<Vec<f64>> {
+    let n = b.len();
+    let m = nalgebra::DMatrix::from_fn(n, n, |i, j| a[i][j]);
+    let chol = m.cholesky()?;
+    let x = chol.solve(&nalgebra::DVector::from_column_slice(b));
+    Some(x.iter().copied().collect())
+}
+
+/// Inverse of a small symmetric positive-definite matrix.
+pub(crate) fn invert_spd(a: &[Vec<f64>]) -> Option<Vec<Vec<f64>>> {
+    let n = a.len();
+    let m = nalgebra::DMatrix::from_fn(n, n, |i, j| a[i][j]);
+    let inv = m.cholesky()?.inverse();
+    Some(
+        (0..n)
+            .map(|i| (0..n).map(|j| inv[(i, j)]).collect())
+            .collect(),
+    )
+}
+
+/// Fisher information F = sum_b n_b (d ln S_b)(d ln S_b)^T and score g = sum_b n_b (P_b/S_b - 1)
+/// d ln S_b (the gradient of minus L).
+fn fisher_and_score(w: &Whittle<'_>, theta: &[f64]) -> (Vec<Vec<f64>>, Vec<f64>) {
+    let n = theta.len();
+    let p = w.model.decode(theta);
+    let means = w.model_means(&p);
+    let derivs = w.log_derivatives(theta);
+    let mut fisher = vec![vec![0.0; n]; n];
+    let mut score = vec![0.0; n];
+    for ((b, s), d) in w.blocks.iter().zip(&means).zip(&derivs) {
+        let nb = b.n_averaged as f64;
+        let r = b.psd / s - 1.0;
+        for i in 0..n {
+            score[i] += nb * r * d[i];
+            for j in 0..n {
+                fisher[i][j] += nb * d[i] * d[j];
+            }
+        }
+    }
+    (fisher, score)
+}
+
+/// Fits `options.model` to the periodogram by maximum likelihood.
+///
+/// The Whittle likelihood of the block means is maximised by Fisher scoring with step halving
+/// (the expected information replaces the Hessian; standard for likelihoods of exponential
+/// families), started from `start` = (fc Hz, D) or, if `None`, from the analytic plain-Lorentzian
+/// fit. Should scoring stall, argmin's Nelder-Mead simplex takes over and scoring polishes its
+/// result. The maximum-likelihood estimate of D is unbiased for any block size, unlike
+/// least squares with data-derived weights (Norrelykke & Flyvbjerg, Rev. Sci. Instrum. 81,
+/// 075103 (2010)).
+pub fn fit_spectrum(
+    periodogram: &Periodogram,
+    options: &SpectrumFitOptions,
+    start: Option<(f64, f64)>,
+) -> Result<SpectrumFit, SpectrumFitError> {
+    let (f_min_hz, f_max_hz) = options.resolved_range(periodogram);
+    if !(f_max_hz > f_min_hz && f_min_hz >= 0.0) {
+        return Err(SpectrumFitError::EmptyRange { f_min_hz, f_max_hz });
+    }
+    let blocks = block_periodogram(
+        periodogram,
+        f_min_hz,
+        f_max_hz,
+        &options.excluded_bins,
+        options.min_bins_per_block,
+        options.target_blocks,
+    );
+    let model = &options.model;
+    let n_params = model.n_params();
+    if blocks.len() < n_params + 2 {
+        return Err(SpectrumFitError::TooFewBlocks {
+            f_min_hz,
+            f_max_hz,
+            n_blocks: blocks.len(),
+            n_params,
+        });
+    }
+    let (fc0, d0) = match start {
+        Some(s) => s,
+        None => starting_values(&blocks, periodogram.sample_rate_hz),
+    };
+    let whittle = Whittle {
+        model,
+        blocks: &blocks,
+    };
+    let mut theta = model.initial_theta(fc0, d0);
+    let (mut theta_opt, mut iterations, converged) = fisher_scoring(&whittle, theta.clone(), 200);
+    if !converged {
+        theta = nelder_mead(&whittle, &theta_opt).unwrap_or(theta_opt.clone());
+        let (t, extra, ok) = fisher_scoring(&whittle, theta, 200);
+        if !ok {
+            return Err(SpectrumFitError::NoConvergence {
+                reason: "the likelihood kept improving after 400 scoring steps; check the fit range and the model options".into(),
+            });
+        }
+        theta_opt = t;
+        iterations += extra;
+    }
+    let theta = theta_opt;
+    let (fisher, _) = fisher_and_score(&whittle, &theta);
+    let covariance = invert_spd(&fisher).ok_or_else(|| SpectrumFitError::NoConvergence {
+        reason: "the Fisher information is singular: the parameters are not determined by the data in this range".into(),
+    })?;
+    let p = model.decode(&theta);
+    let model_psd = whittle.model_means(&p);
+    let chi_square: f64 = blocks
+        .iter()
+        .zip(&model_psd)
+        .map(|(b, s)| b.n_averaged as f64 * ((b.psd - s) / s).powi(2))
+        .sum();
+    let degrees_of_freedom = blocks.len() - n_params;
+    let p_value = ChiSquared::new(degrees_of_freedom as f64)
+        .map(|d| d.sf(chi_square))
+        .unwrap_or(f64::NAN);
+    let var_ln_fc = covariance[0][0];
+    let var_ln_d = covariance[1][1];
+    let fitted_filter = match (model.filter, p.filter) {
+        (FilterSetting::Fitted(_), Some(f)) => {
+            // alpha = sqrt(logistic(u)); d alpha / du = alpha (1 - alpha^2) / 2.
+            let dalpha = f.alpha * f.alpha.mul_add(-f.alpha, 1.0) / 2.0;
+            Some(FittedFilter {
+                f3db_hz: f.f3db_hz,
+                f3db_se_hz: f.f3db_hz * covariance[2][2].sqrt(),
+                alpha: f.alpha,
+                alpha_se: dalpha.abs() * covariance[3][3].sqrt(),
+            })
+        }
+        _ => None,
+    };
+    Ok(SpectrumFit {
+        corner_frequency_hz: p.fc,
+        corner_frequency_se_hz: p.fc * var_ln_fc.sqrt(),
+        diffusion: p.d,
+        diffusion_se: p.d * var_ln_d.sqrt(),
+        correlation_fc_diffusion: covariance[0][1] / (var_ln_fc * var_ln_d).sqrt(),
+        fitted_filter,
+        theta,
+        covariance,
+        chi_square,
+        degrees_of_freedom,
+        p_value,
+        f_min_hz,
+        f_max_hz,
+        blocks,
+        model_psd,
+        iterations,
+    })
+}
+
+/// Fisher scoring: theta <- theta + F^-1 g, halving the step until the likelihood improves.
+/// Returns the last parameters, the iterations used and whether the step size converged.
+fn fisher_scoring(
+    w: &Whittle<'_>,
+    mut theta: Vec<f64>,
+    max_iter: usize,
+) -> (Vec<f64>, usize, bool) {
+    let mut cost = w.cost_at(&theta);
+    if !cost.is_finite() {
+        return (theta, 0, false);
+    }
+    for iter in 1..=max_iter {
+        let (fisher, score) = fisher_and_score(w, &theta);
+        let Some(step) = solve_spd(&fisher, &score) else {
+            return (theta, iter, false);
+        };
+        let mut scale: f64 = 1.0;
+        let mut improved = false;
+        for _ in 0..40 {
+            let trial: Vec<f64> = theta
+                .iter()
+                .zip(&step)
+                .map(|(t, s)| scale.mul_add(*s, *t))
+                .collect();
+            let c = w.cost_at(&trial);
+            if c.is_finite() && c <= cost {
+                theta = trial;
+                cost = c;
+                improved = true;
+                break;
+            }
+            scale *= 0.5;
+        }
+        let step_norm = step.iter().map(|s| s * s).sum::<f64>().sqrt() * scale;
+        if !improved || step_norm < 1e-9 {
+            // A full Newton-type step that no longer moves the parameters is convergence; a
+            // failed line search right after a large step is not.
+            return (theta, iter, step_norm < 1e-6);
+        }
+    }
+    (theta, max_iter, false)
+}
+
+/// Nelder-Mead simplex from argmin, around `theta`, for starts where scoring stalls.
+fn nelder_mead(w: &Whittle<'_>, theta: &[f64]) -> Option<Vec<f64>> {
+    let mut simplex = vec![theta.to_vec()];
+    for i in 0..theta.len() {
+        let mut v = theta.to_vec();
+        v[i] += 0.3;
+        simplex.push(v);
+    }
+    let solver = NelderMead::new(simplex).with_sd_tolerance(1e-10).ok()?;
+    let problem = Whittle {
+        model: w.model,
+        blocks: w.blocks,
+    };
+    let result = Executor::new(problem, solver)
+        .configure(|state| state.max_iters(2000))
+        .run()
+        .ok()?;
+    result.state.best_param.clone()
+}
+
+/// Starting values (fc, D) from the analytic fit over the blocks below half the Nyquist
+/// frequency, where aliasing distorts the Lorentzian least; falls back to fc = f_s / 10 and the
+/// matching D when that fit is not usable.
+fn starting_values(blocks: &[Block], sample_rate_hz: f64) -> (f64, f64) {
+    let low: Vec<Block> = blocks
+        .iter()
+        .filter(|b| b.frequency_hz < sample_rate_hz / 4.0)
+        .cloned()
+        .collect();
+    let use_blocks = if low.len() >= 4 { &low[..] } else { blocks };
+    if let Some(fit) = plain_lorentzian_wls(use_blocks)
+        && fit.corner_frequency_hz.is_finite()
+        && fit.corner_frequency_hz > 0.0
+        && fit.diffusion > 0.0
+    {
+        return (fit.corner_frequency_hz, fit.diffusion);
+    }
+    let fc = sample_rate_hz / 10.0;
+    let b0 = &blocks[0];
+    (
+        fc,
+        b0.psd * PI * PI * fc.mul_add(fc, b0.frequency_hz.powi(2)),
+    )
+}
+
+/// The analytic weighted least-squares fit of a plain (unaliased) Lorentzian.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct PlainLorentzianFit {
+    pub corner_frequency_hz: f64,
+    pub corner_frequency_se_hz: f64,
+    /// D (one-sided convention), corrected for the +1/n bias of the method.
+    pub diffusion: f64,
+    pub diffusion_se: f64,
+}
+
+/// Berg-Sorensen & Flyvbjerg 2004 analytic fit of 1/P = a + b f^2, minimising
+/// sum_b n_b P_b^2 (a + b f_b^2 - 1/P_b)^2, with their error bars, and D corrected by
+/// n/(n+1) for the bias of weighting by the data (Norrelykke & Flyvbjerg 2010), using the mean
+/// number of ordinates per block. In the one-sided convention a = pi^2 fc^2 / D, b = pi^2 / D.
+///
+/// It ignores aliasing and filtering; trapwise uses it for starting values and to show what the
+/// plain Lorentzian gets wrong. Returns `None` for fewer than three blocks or a singular system.
+pub fn plain_lorentzian_wls(blocks: &[Block]) -> Option<PlainLorentzianFit> {
+    if blocks.len() < 3 {
+        return None;
+    }
+    let mut s = [[0.0f64; 3]; 3]; // s[p][q] = sum n f^(2p) P^q
+    let mut n_total = 0.0;
+    for b in blocks {
+        let n = b.n_averaged as f64;
+        let f2 = b.frequency_hz * b.frequency_hz;
+        let mut fp = 1.0;
+        for row in &mut s {
+            let mut pq = 1.0;
+            for cell in row.iter_mut() {
+                *cell += n * fp * pq;
+                pq *= b.psd;
+            }
+            fp *= f2;
+        }
+        n_total += n;
+    }
+    let delta = s[0][2].mul_add(s[2][2], -(s[1][2] * s[1][2]));
+    if delta == 0.0 || !delta.is_finite() {
+        return None;
+    }
+    let a = s[0][1].mul_add(s[2][2], -(s[1][1] * s[1][2])) / delta;
+    let b = s[1][1].mul_add(s[0][2], -(s[0][1] * s[1][2])) / delta;
+    let n_mean = n_total / blocks.len() as f64;
+    let fc = (a / b).sqrt();
+    let d_raw = PI * PI / b;
+    // The sums already carry the weights n_b, so the covariance is S/Delta without a 1/n.
+    let var_a = s[2][2] / delta;
+    let var_b = s[0][2] / delta;
+    let cov_ab = -s[1][2] / delta;
+    let rel_var_fc = (var_a / (a * a) + var_b / (b * b) - 2.0 * cov_ab / (a * b)) / 4.0;
+    let correction = n_mean / (n_mean + 1.0);
+    Some(PlainLorentzianFit {
+        corner_frequency_hz: fc,
+        corner_frequency_se_hz: fc * rel_var_fc.abs().sqrt(),
+        diffusion: d_raw * correction,
+        diffusion_se: d_raw * correction * (var_b.sqrt() / b.abs()),
+    })
+}

@@ -1,0 +1,205 @@
+//! Models of the one-sided power spectrum of a trapped bead as the detector records it.
+//!
+//! The parameters travel as a plain vector `theta` in log space so the fit is unconstrained:
+//! theta = [ln fc/Hz, ln D/(unit^2/s)] and, when the detector filter is fitted, also
+//! [ln f3dB/Hz, logit(alpha^2)].
+
+use std::f64::consts::PI;
+
+/// The photodiode's parasitic low-pass filter (Berg-Sorensen, Oddershede, Florin & Flyvbjerg,
+/// J. Appl. Phys. 93, 3167 (2003) (citation from memory, unverified)): a fraction alpha^2 of the
+/// signal responds instantly, the rest through a first-order low-pass with corner f3dB:
+/// g(f) = alpha^2 + (1 - alpha^2) / (1 + (f / f3dB)^2).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct DetectorFilter {
+    /// Corner frequency of the slow part, Hz.
+    pub f3db_hz: f64,
+    /// Amplitude fraction of the instantaneous response, 0 < alpha <= 1 (dimensionless).
+    pub alpha: f64,
+}
+
+impl DetectorFilter {
+    /// Power gain g(f) at frequency `f_hz`.
+    pub fn gain(&self, f_hz: f64) -> f64 {
+        let a2 = self.alpha * self.alpha;
+        let x = f_hz / self.f3db_hz;
+        a2 + (1.0 - a2) / x.mul_add(x, 1.0)
+    }
+}
+
+/// Whether and how the detector filter enters the model.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum FilterSetting {
+    /// No filter: the detector is taken as instantaneous (camera tracking, or a fast detector).
+    None,
+    /// A known filter, for instance calibrated separately.
+    Fixed(DetectorFilter),
+    /// A filter fitted together with fc and D, started from the given values.
+    Fitted(DetectorFilter),
+}
+
+/// Frequency scales of the frequency-dependent drag on a sphere (Stokes 1851, in the form of
+/// Berg-Sorensen & Flyvbjerg 2004): f_nu = nu / (pi R^2) and f_m = gamma0 / (2 pi m*).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct HydroTerms {
+    /// Frequency where the viscous penetration depth equals the radius, Hz.
+    pub f_nu_hz: f64,
+    /// Inertial frequency of bead plus half the displaced fluid, Hz.
+    pub f_m_hz: f64,
+}
+
+/// A spectrum model: which physical terms it includes.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct SpectrumModel {
+    /// Sampling rate, Hz (sets aliasing).
+    pub sample_rate_hz: f64,
+    /// Fold in the aliases of a discretely sampled signal (always on for real calibrations; off
+    /// only to show what the plain Lorentzian gets wrong).
+    pub aliasing: bool,
+    /// Detector filter.
+    pub filter: FilterSetting,
+    /// Frequency-dependent drag, or `None` for constant Stokes drag.
+    pub hydro: Option<HydroTerms>,
+}
+
+/// Number of alias images summed on each side when no closed form applies; the rest is added
+/// as a tail estimate (see `SpectrumModel::one_sided_psd`).
+const ALIAS_TERMS: i32 = 24;
+
+/// Closed-form one-sided spectrum of an Ornstein-Uhlenbeck process sampled instantaneously:
+/// S(f) = 2 sigma^2 dt (1 - c^2) / (1 + c^2 - 2 c cos(2 pi f dt)), sigma^2 = D / (2 pi fc),
+/// c = exp(-2 pi fc dt). It equals sum_n S_Lorentz(f + n fs) exactly (Berg-Sorensen &
+/// Flyvbjerg 2004, their aliased Lorentzian, written here one-sided).
+pub fn aliased_lorentzian_one_sided(
+    f_hz: f64,
+    corner_frequency_hz: f64,
+    diffusion: f64,
+    sample_rate_hz: f64,
+) -> f64 {
+    let dt = 1.0 / sample_rate_hz;
+    let c = (-2.0 * PI * corner_frequency_hz * dt).exp();
+    let variance = diffusion / (2.0 * PI * corner_frequency_hz);
+    let denom = (2.0 * c).mul_add(-(2.0 * PI * f_hz * dt).cos(), c.mul_add(c, 1.0));
+    2.0 * variance * dt * c.mul_add(-c, 1.0) / denom
+}
+
+/// Plain one-sided Lorentzian D / (pi^2 (fc^2 + f^2)).
+fn lorentzian(f_hz: f64, fc: f64, d: f64) -> f64 {
+    d / (PI * PI * fc.mul_add(fc, f_hz * f_hz))
+}
+
+/// One-sided spectrum with frequency-dependent drag (Berg-Sorensen & Flyvbjerg 2004):
+/// S(f) = (D / pi^2) (1 + s) / ((fc - f s - f^2/f_m)^2 + (f + f s)^2), s = sqrt(f / f_nu).
+fn hydro_spectrum(f_hz: f64, fc: f64, d: f64, hydro: &HydroTerms) -> f64 {
+    let f = f_hz.abs();
+    let s = (f / hydro.f_nu_hz).sqrt();
+    let re = f.mul_add(-s, fc) - f * f / hydro.f_m_hz;
+    let im = f.mul_add(s, f);
+    d / (PI * PI) * (1.0 + s) / re.mul_add(re, im * im)
+}
+
+/// Decoded model parameters.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct Params {
+    pub(crate) fc: f64,
+    pub(crate) d: f64,
+    pub(crate) filter: Option<DetectorFilter>,
+}
+
+fn logistic(x: f64) -> f64 {
+    1.0 / (1.0 + (-x).exp())
+}
+
+impl SpectrumModel {
+    /// Number of fitted parameters (2, or 4 with a fitted filter).
+    pub fn n_params(&self) -> usize {
+        match self.filter {
+            FilterSetting::Fitted(_) => 4,
+            _ => 2,
+        }
+    }
+
+    /// Initial parameter vector from starting values of fc and D.
+    pub(crate) fn initial_theta(&self, fc: f64, d: f64) -> Vec<f64> {
+        let mut theta = vec![fc.ln(), d.ln()];
+        if let FilterSetting::Fitted(f) = self.filter {
+            let a2 = (f.alpha * f.alpha).clamp(1e-4, 1.0 - 1e-4);
+            theta.push(f.f3db_hz.ln());
+            theta.push((a2 / (1.0 - a2)).ln());
+        }
+        theta
+    }
+
+    pub(crate) fn decode(&self, theta: &[f64]) -> Params {
+        let fc = theta.first().copied().unwrap_or(0.0).exp();
+        let d = theta.get(1).copied().unwrap_or(0.0).exp();
+        let filter = match self.filter {
+            FilterSetting::None => None,
+            FilterSetting::Fixed(f) => Some(f),
+            FilterSetting::Fitted(_) => Some(DetectorFilter {
+                f3db_hz: theta.get(2).copied().unwrap_or(0.0).exp(),
+                alpha: logistic(theta.get(3).copied().unwrap_or(0.0)).sqrt(),
+            }),
+        };
+        Params { fc, d, filter }
+    }
+
+    /// What the detector would see at one frequency without aliasing.
+    fn unaliased(&self, f_hz: f64, p: &Params) -> f64 {
+        let f = f_hz.abs();
+        let s = match &self.hydro {
+            Some(h) => hydro_spectrum(f, p.fc, p.d, h),
+            None => lorentzian(f, p.fc, p.d),
+        };
+        match &p.filter {
+            Some(filter) => s * filter.gain(f),
+            None => s,
+        }
+    }
+
+    /// Expected one-sided PSD at `f_hz` (0 <= f <= f_Nyquist) for parameters `theta`.
+    ///
+    /// With aliasing and neither filter nor hydrodynamics the closed form is used. Otherwise the
+    /// filter and the drag act before sampling, so the aliases are summed numerically,
+    /// sum_{|n| <= M} g(f + n fs) S(f + n fs), and the images beyond M are added as the exact
+    /// Lorentzian tail (closed form minus its partial sum) scaled by the ratio of the full model
+    /// to the Lorentzian at the cut-off, which is constant to first order out there
+    /// (derived here; the tail is a few per cent of the total at f_Nyquist for M = 24).
+    pub(crate) fn psd_params(&self, f_hz: f64, p: &Params) -> f64 {
+        if !self.aliasing {
+            return self.unaliased(f_hz, p);
+        }
+        let fs = self.sample_rate_hz;
+        let closed = aliased_lorentzian_one_sided(f_hz, p.fc, p.d, fs);
+        if p.filter.is_none() && self.hydro.is_none() {
+            return closed;
+        }
+        let mut sum = 0.0;
+        let mut lorentz_partial = 0.0;
+        for n in -ALIAS_TERMS..=ALIAS_TERMS {
+            let f = f64::from(n).mul_add(fs, f_hz);
+            sum += self.unaliased(f, p);
+            lorentz_partial += lorentzian(f, p.fc, p.d);
+        }
+        let cutoff = (f64::from(ALIAS_TERMS) + 0.5) * fs;
+        let ratio = self.unaliased(cutoff, p) / lorentzian(cutoff, p.fc, p.d);
+        (closed - lorentz_partial).max(0.0).mul_add(ratio, sum)
+    }
+
+    /// Expected one-sided PSD at `f_hz` for parameters `theta`.
+    pub fn one_sided_psd(&self, f_hz: f64, theta: &[f64]) -> f64 {
+        self.psd_params(f_hz, &self.decode(theta))
+    }
+
+    /// Mean of the model over the frequency interval [lower, upper], by 3-point Gauss-Legendre
+    /// quadrature (exact for cubics), which stands for the mean over the discrete bins of a block.
+    pub(crate) fn block_mean(&self, lower_hz: f64, upper_hz: f64, p: &Params) -> f64 {
+        let mid = 0.5 * (lower_hz + upper_hz);
+        let half = 0.5 * (upper_hz - lower_hz);
+        let node = half * (3.0f64 / 5.0).sqrt();
+        let w_outer = 5.0 / 18.0;
+        let w_mid = 8.0 / 18.0;
+        w_outer * (self.psd_params(mid - node, p) + self.psd_params(mid + node, p))
+            + w_mid * self.psd_params(mid, p)
+    }
+}

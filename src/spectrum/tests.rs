@@ -1,0 +1,422 @@
+//! Unit tests of the spectrum module: conventions, the exact aliased spectrum, and the
+//! statistical behaviour of the maximum-likelihood fit on exact simulations.
+
+// Reference formulas stay written as in their sources, not rearranged into fused multiply-adds.
+#![allow(clippy::suboptimal_flops)]
+
+use super::*;
+use crate::simulate::{generator, ou_series};
+use std::f64::consts::PI;
+
+fn ideal_model(sample_rate_hz: f64) -> SpectrumModel {
+    SpectrumModel {
+        sample_rate_hz,
+        aliasing: true,
+        filter: FilterSetting::None,
+        hydro: None,
+    }
+}
+
+#[track_caller]
+fn check_close(actual: f64, expected: f64, rel_tol: f64) {
+    let rel = ((actual - expected) / expected).abs();
+    assert!(
+        rel <= rel_tol,
+        "actual {actual:e}, expected {expected:e}, relative error {rel:e} > {rel_tol:e}"
+    );
+}
+
+/// Direct alias sum of the one-sided Lorentzian D/(pi^2 (fc^2 + f^2)) over n = -M..M, plus the
+/// analytic tail sum_{|n|>M} D/(pi^2 n^2 fs^2) ~ 2D/(pi^2 fs^2 M) to first order, an obviously
+/// correct (slow) reference for the closed form.
+fn brute_force_alias_sum(f: f64, fc: f64, d: f64, fs: f64) -> f64 {
+    let m = 200_000i64;
+    let mut sum = 0.0;
+    for n in -m..=m {
+        let g = f + n as f64 * fs;
+        sum += d / (PI * PI * (fc * fc + g * g));
+    }
+    sum + 2.0 * d / (PI * PI * fs * fs * m as f64)
+}
+
+#[test]
+fn aliased_lorentzian_equals_direct_alias_sum() {
+    // Exact analytical identity (Berg-Sorensen & Flyvbjerg, Rev. Sci. Instrum. 75, 594 (2004)):
+    // the closed form equals the sum over all alias images of the Lorentzian.
+    for &(fc, fs, f) in &[
+        (100.0, 10_000.0, 10.0),
+        (500.0, 20_000.0, 3_000.0),
+        (2_500.0, 10_000.0, 4_990.0),
+        (5_000.0, 20_000.0, 9_999.0),
+        (50.0, 100_000.0, 49_000.0),
+    ] {
+        let d = 3.7e-13;
+        check_close(
+            aliased_lorentzian_one_sided(f, fc, d, fs),
+            brute_force_alias_sum(f, fc, d, fs),
+            1e-8,
+        );
+    }
+}
+
+#[test]
+fn aliased_lorentzian_at_nyquist_exceeds_plain_by_pi_squared_over_four_for_low_fc() {
+    // For fc << fs, S_al(f_Nyq) / S_Lorentz(f_Nyq) -> pi^2/4 (sum over odd images of
+    // 1/(2n+1)^2 = pi^2/8, both signs): an exact limit.
+    let (fc, fs, d) = (1.0, 100_000.0, 1.0);
+    let f = fs / 2.0;
+    let plain = d / (PI * PI * (fc * fc + f * f));
+    check_close(
+        aliased_lorentzian_one_sided(f, fc, d, fs) / plain,
+        PI * PI / 4.0,
+        1e-6,
+    );
+}
+
+#[test]
+fn aliased_lorentzian_integrates_to_the_variance() {
+    // Parseval for the sampled process: the one-sided spectrum integrated over 0..f_Nyq equals
+    // sigma^2 = D / (2 pi fc) exactly (the AR(1) variance).
+    let (fc, fs, d) = (800.0, 10_000.0, 2.0);
+    let n = 200_000;
+    let df = fs / 2.0 / n as f64;
+    let integral: f64 = (0..n)
+        .map(|i| aliased_lorentzian_one_sided((i as f64 + 0.5) * df, fc, d, fs) * df)
+        .sum();
+    check_close(integral, d / (2.0 * PI * fc), 1e-8);
+}
+
+#[test]
+fn numeric_alias_sum_with_unit_filter_matches_closed_form() {
+    // A filter with alpha = 1 is no filter, so the numerically summed aliases (with their tail
+    // estimate) must reproduce the closed form; this pins the tail handling.
+    let fs = 50_000.0;
+    let model = SpectrumModel {
+        filter: FilterSetting::Fixed(DetectorFilter {
+            f3db_hz: 8_000.0,
+            alpha: 1.0,
+        }),
+        ..ideal_model(fs)
+    };
+    let theta = model.initial_theta(1_200.0, 5.0);
+    for f in [10.0, 1_000.0, 12_000.0, 24_900.0] {
+        check_close(
+            model.one_sided_psd(f, &theta),
+            aliased_lorentzian_one_sided(f, 1_200.0, 5.0, fs),
+            1e-12,
+        );
+    }
+}
+
+#[test]
+fn filtered_alias_sum_matches_brute_force_filtered_sum() {
+    // sum_n g(f + n fs) S(f + n fs) summed directly to |n| = 200000 (slow reference) against
+    // the model's 24 images plus tail estimate.
+    let fs = 50_000.0;
+    let filter = DetectorFilter {
+        f3db_hz: 7_000.0,
+        alpha: 0.4,
+    };
+    let model = SpectrumModel {
+        filter: FilterSetting::Fixed(filter),
+        ..ideal_model(fs)
+    };
+    let (fc, d) = (1_500.0, 1.0);
+    let theta = model.initial_theta(fc, d);
+    for f in [100.0, 5_000.0, 20_000.0, 24_990.0] {
+        let m = 200_000i64;
+        let mut reference = 0.0;
+        for n in -m..=m {
+            let g = f + n as f64 * fs;
+            reference += filter.gain(g.abs()) * d / (PI * PI * (fc * fc + g * g));
+        }
+        reference += filter.alpha.powi(2) * 2.0 * d / (PI * PI * fs * fs * m as f64);
+        check_close(model.one_sided_psd(f, &theta), reference, 1e-5);
+    }
+}
+
+#[test]
+fn hydro_model_tends_to_the_lorentzian_when_its_frequencies_are_huge() {
+    let fs = 50_000.0;
+    let model = SpectrumModel {
+        hydro: Some(HydroTerms {
+            f_nu_hz: 1e30,
+            f_m_hz: 1e30,
+        }),
+        ..ideal_model(fs)
+    };
+    let theta = model.initial_theta(900.0, 1.0);
+    for f in [20.0, 900.0, 20_000.0] {
+        check_close(
+            model.one_sided_psd(f, &theta),
+            aliased_lorentzian_one_sided(f, 900.0, 1.0, fs),
+            1e-9,
+        );
+    }
+}
+
+#[test]
+fn periodogram_of_a_sine_puts_its_mean_square_in_one_bin() {
+    // Exact: a sine of amplitude A at a Fourier frequency has mean square A^2/2, all of it in
+    // that bin of the one-sided periodogram (PSD times resolution).
+    let (fs, n, k0, amp) = (1_000.0, 1_024usize, 37usize, 3.0);
+    let x: Vec<f64> = (0..n)
+        .map(|j| amp * (2.0 * PI * k0 as f64 * j as f64 / n as f64).sin())
+        .collect();
+    let pg = periodogram(&x, fs, 1).expect("long enough");
+    check_close(pg.psd[k0] * pg.resolution_hz(), amp * amp / 2.0, 1e-12);
+    let elsewhere: f64 = pg
+        .psd
+        .iter()
+        .enumerate()
+        .filter(|(k, _)| *k != k0)
+        .map(|(_, p)| p)
+        .sum();
+    assert!(elsewhere < 1e-20, "leakage {elsewhere:e}");
+}
+
+#[test]
+fn periodogram_satisfies_parseval() {
+    // Exact: sum of the one-sided PSD times the resolution equals the mean square of the
+    // mean-removed samples (Parseval's theorem for the DFT).
+    let mut rng = generator(7);
+    let x = ou_series(300.0, 2.0, 10_000.0, 4_000, &mut rng);
+    let pg = periodogram(&x, 10_000.0, 1).expect("long enough");
+    let mean = x.iter().sum::<f64>() / x.len() as f64;
+    let n_used = pg.segment_len;
+    let mean_used = x[..n_used].iter().sum::<f64>() / n_used as f64;
+    let ms: f64 = x[..n_used].iter().map(|v| (v - mean).powi(2)).sum::<f64>() / n_used as f64;
+    // Removing the whole-record mean leaves the segment's own mean offset in the DC bin.
+    let dc_offset = (mean_used - mean).powi(2);
+    let total: f64 = pg.psd.iter().sum::<f64>() * pg.resolution_hz();
+    check_close(total, ms, 1e-10);
+    assert!(pg.psd[0] * pg.resolution_hz() <= dc_offset + 1e-12 * ms);
+}
+
+#[test]
+fn fast_length_picks_the_largest_five_smooth_length() {
+    for (n, expected) in [
+        (1_000, 1_000),
+        (1_021, 1_000),
+        (4_194_304, 4_194_304),
+        (97, 96),
+        (17, 16),
+    ] {
+        assert_eq!(fast_length_at_most(n), expected, "n = {n}");
+    }
+}
+
+#[test]
+fn blocks_cover_the_range_and_respect_the_minimum_size() {
+    let pg = Periodogram {
+        sample_rate_hz: 1_000.0,
+        segment_len: 2_000,
+        n_windows: 3,
+        psd: (0..=1_000).map(|k| k as f64).collect(),
+    };
+    let excluded = [100usize, 101];
+    let blocks = block_periodogram(&pg, 10.0, 400.0, &excluded, 16, 30);
+    assert!(blocks.iter().all(|b| b.n_bins >= 14), "{blocks:?}");
+    let total: usize = blocks.iter().map(|b| b.n_bins).sum();
+    // Bins 20..=800 (f = k / 2 Hz) minus the two excluded ones.
+    assert_eq!(total, 800 - 20 + 1 - 2);
+    assert!(blocks.iter().all(|b| b.n_averaged == 3 * b.n_bins));
+    // The block mean of psd = k is the mean bin index of its bins.
+    for b in &blocks {
+        check_close(b.psd, b.frequency_hz * 2.0, 1e-12);
+    }
+}
+
+struct FitStats {
+    mean_fc: f64,
+    sd_fc: f64,
+    mean_se_fc: f64,
+    mean_d: f64,
+    sd_d: f64,
+    mean_se_d: f64,
+}
+
+fn repeated_fits(fc: f64, fs: f64, n: usize, seeds: u64, plain: bool) -> FitStats {
+    let d = 1.0; // signal units^2/s; the variance is D/(2 pi fc)
+    let variance = d / (2.0 * PI * fc);
+    let mut fcs = Vec::new();
+    let mut ses = Vec::new();
+    let mut ds = Vec::new();
+    let mut dses = Vec::new();
+    for seed in 0..seeds {
+        let mut rng = generator(1_000 + seed);
+        let x = ou_series(fc, variance, fs, n, &mut rng);
+        let pg = periodogram(&x, fs, 1).expect("long enough");
+        let mut options = SpectrumFitOptions::new(ideal_model(fs));
+        options.range.f_max_hz = Some(0.98 * fs / 2.0);
+        let fit = fit_spectrum(&pg, &options, None).expect("fit");
+        if plain {
+            let wls = plain_lorentzian_wls(&fit.blocks).expect("wls");
+            fcs.push(wls.corner_frequency_hz);
+            ses.push(wls.corner_frequency_se_hz);
+            ds.push(wls.diffusion);
+            dses.push(wls.diffusion_se);
+        } else {
+            fcs.push(fit.corner_frequency_hz);
+            ses.push(fit.corner_frequency_se_hz);
+            ds.push(fit.diffusion);
+            dses.push(fit.diffusion_se);
+        }
+    }
+    let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
+    let sd = |v: &[f64]| {
+        let m = mean(v);
+        (v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (v.len() as f64 - 1.0)).sqrt()
+    };
+    FitStats {
+        mean_fc: mean(&fcs),
+        sd_fc: sd(&fcs),
+        mean_se_fc: mean(&ses),
+        mean_d: mean(&ds),
+        sd_d: sd(&ds),
+        mean_se_d: mean(&dses),
+    }
+}
+
+#[track_caller]
+fn check_unbiased_and_honest(stats: &FitStats, fc: f64, d: f64, seeds: u64) {
+    let sem_fc = stats.sd_fc / (seeds as f64).sqrt();
+    assert!(
+        (stats.mean_fc - fc).abs() < 3.0 * sem_fc,
+        "fc biased: mean {} truth {fc} sem {sem_fc}",
+        stats.mean_fc
+    );
+    let sem_d = stats.sd_d / (seeds as f64).sqrt();
+    assert!(
+        (stats.mean_d - d).abs() < 3.0 * sem_d,
+        "D biased: mean {} truth {d} sem {sem_d}",
+        stats.mean_d
+    );
+    let ratio_fc = stats.mean_se_fc / stats.sd_fc;
+    let ratio_d = stats.mean_se_d / stats.sd_d;
+    assert!(
+        (0.75..1.25).contains(&ratio_fc),
+        "fc SE / spread = {ratio_fc}"
+    );
+    assert!((0.75..1.25).contains(&ratio_d), "D SE / spread = {ratio_d}");
+}
+
+#[test]
+fn mle_recovers_fc_and_d_without_bias_well_below_nyquist() {
+    // Exact simulations (AR(1), Norrelykke & Flyvbjerg 2011) with fc/fs = 0.025.
+    let seeds = 60;
+    let stats = repeated_fits(500.0, 20_000.0, 1 << 16, seeds, false);
+    check_unbiased_and_honest(&stats, 500.0, 1.0, seeds);
+}
+
+#[test]
+fn mle_recovers_fc_and_d_without_bias_at_a_quarter_of_the_sample_rate() {
+    let seeds = 60;
+    let stats = repeated_fits(5_000.0, 20_000.0, 1 << 16, seeds, false);
+    check_unbiased_and_honest(&stats, 5_000.0, 1.0, seeds);
+}
+
+#[test]
+fn plain_lorentzian_is_biased_at_a_quarter_of_the_sample_rate() {
+    // What ignoring aliasing costs (Berg-Sorensen & Flyvbjerg 2004): fitting the plain
+    // Lorentzian to the same data overestimates fc by tens of per cent, far outside its spread.
+    let seeds = 20;
+    let stats = repeated_fits(5_000.0, 20_000.0, 1 << 16, seeds, true);
+    let sem = stats.sd_fc / (seeds as f64).sqrt();
+    assert!(
+        stats.mean_fc > 5_000.0 * 1.2 && (stats.mean_fc - 5_000.0) > 20.0 * sem,
+        "plain Lorentzian mean fc {} (sem {sem})",
+        stats.mean_fc
+    );
+}
+
+#[test]
+fn fitted_detector_filter_is_recovered() {
+    // Synthetic filtered spectrum: draw periodogram ordinates as exponential variables around
+    // the exact filtered, aliased expectation (their distribution for a Gaussian process, BSF
+    // 2004 sec. IV), then fit with the filter free.
+    use rand_distr::{Distribution, Exp1};
+    let fs = 50_000.0;
+    let truth = DetectorFilter {
+        f3db_hz: 6_000.0,
+        alpha: 0.45,
+    };
+    let model = SpectrumModel {
+        filter: FilterSetting::Fixed(truth),
+        ..ideal_model(fs)
+    };
+    let theta = model.initial_theta(1_500.0, 1.0);
+    let segment_len = 1 << 18;
+    let mut rng = generator(99);
+    let psd: Vec<f64> = (0..=segment_len / 2)
+        .map(|k| {
+            let f = k as f64 * fs / segment_len as f64;
+            let e: f64 = Exp1.sample(&mut rng);
+            model.one_sided_psd(f, &theta) * e
+        })
+        .collect();
+    let pg = Periodogram {
+        sample_rate_hz: fs,
+        segment_len,
+        n_windows: 1,
+        psd,
+    };
+    let fit_model = SpectrumModel {
+        filter: FilterSetting::Fitted(DetectorFilter {
+            f3db_hz: 10_000.0,
+            alpha: 0.3,
+        }),
+        ..ideal_model(fs)
+    };
+    let fit = fit_spectrum(&pg, &SpectrumFitOptions::new(fit_model), None).expect("fit");
+    let filter = fit.fitted_filter.expect("filter fitted");
+    let z = |est: f64, se: f64, truth: f64| ((est - truth) / se).abs();
+    assert!(
+        z(fit.corner_frequency_hz, fit.corner_frequency_se_hz, 1_500.0) < 4.0,
+        "{fit:?}"
+    );
+    assert!(
+        z(filter.f3db_hz, filter.f3db_se_hz, 6_000.0) < 4.0,
+        "{filter:?}"
+    );
+    assert!(z(filter.alpha, filter.alpha_se, 0.45) < 4.0, "{filter:?}");
+    assert!(fit.p_value > 1e-4, "p = {}", fit.p_value);
+}
+
+#[test]
+fn goodness_of_fit_p_values_are_not_extreme_for_ideal_data() {
+    // Under the true model the chi-square p-value is roughly uniform; over 20 seeds none should
+    // fall below 1e-3 (expected 0.02 such cases).
+    for seed in 0..20 {
+        let mut rng = generator(50 + seed);
+        let x = ou_series(800.0, 1.0, 20_000.0, 1 << 16, &mut rng);
+        let pg = periodogram(&x, 20_000.0, 1).expect("long enough");
+        let fit =
+            fit_spectrum(&pg, &SpectrumFitOptions::new(ideal_model(20_000.0)), None).expect("fit");
+        assert!(fit.p_value > 1e-3, "seed {seed}: p = {}", fit.p_value);
+    }
+}
+
+#[test]
+fn narrow_peaks_find_mains_hum_and_nothing_in_clean_data() {
+    let fs = 20_000.0;
+    let n = 1 << 17;
+    for seed in 0..5 {
+        let mut rng = generator(300 + seed);
+        let clean = ou_series(600.0, 1.0, fs, n, &mut rng);
+        let pg = periodogram(&clean, fs, 1).expect("long enough");
+        let peaks = find_narrow_peaks(&pg, 0.01);
+        assert!(peaks.is_empty(), "seed {seed}: {peaks:?}");
+    }
+    let mut rng = generator(400);
+    let mut x = ou_series(600.0, 1.0, fs, n, &mut rng);
+    for (j, v) in x.iter_mut().enumerate() {
+        let t = j as f64 / fs;
+        *v += 0.3 * (2.0 * PI * 50.0 * t).sin() + 0.2 * (2.0 * PI * 150.0 * t).sin();
+    }
+    let pg = periodogram(&x, fs, 1).expect("long enough");
+    let peaks = find_narrow_peaks(&pg, 0.01);
+    let mains: Vec<_> = peaks.iter().filter_map(|p| p.mains).collect();
+    assert!(mains.contains(&(50.0, 1)), "{peaks:?}");
+    assert!(mains.contains(&(50.0, 3)), "{peaks:?}");
+}
