@@ -1,0 +1,1 @@
+//! Placeholder: drag of a sphere (being written).
