@@ -168,8 +168,8 @@ pub fn faxen_valid(radius_m: f64, height_m: f64) -> bool {
 /// / [4 sinh^2(m alpha / 2) - m^2 sinh^2(alpha)], whose numerator does not grow with n, so there
 /// is no cancellation between two huge numbers. The sum stops when a term falls below 1e-18 of
 /// the partial sum, and always before m alpha > 700, where sinh^2(m alpha / 2) would overflow.
-/// For R/h <= 1e-6 the leading reflection result 1 / (1 - (9/8) R/h) (Lorentz 1907; Happel &
-/// Brenner) is returned, exact to double precision there.
+/// For R/h <= 1e-6 the leading reflection result 1 / (1 - (9/8) R/h) (Lorentz 1907, year from
+/// memory, unverified; Happel & Brenner) is returned, exact to double precision there.
 ///
 /// Errors: non-positive or non-finite radius or height, a height not above the radius, or a gap
 /// below [`BRENNER_MIN_GAP_OVER_RADIUS`] times the radius.

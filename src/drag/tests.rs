@@ -159,8 +159,8 @@ fn check_far_field(factor: WallFormula, leading: f64) {
 
 #[test]
 fn brenner_factor_tends_to_the_lorentz_reflection_limit_far_from_the_wall() {
-    // Method of reflections (Lorentz 1907; Happel & Brenner): gamma_perp/gamma0 = 1 + (9/8) R/h
-    // + O((R/h)^2).
+    // Method of reflections (Lorentz 1907, year from memory, unverified; Happel & Brenner):
+    // gamma_perp/gamma0 = 1 + (9/8) R/h + O((R/h)^2).
     check_far_field(brenner_axial_factor, 9.0 / 8.0);
 }
 

@@ -72,10 +72,9 @@ fn check_temperature_c(temperature_c: f64) -> Result<(), WaterError> {
 
 /// Dynamic viscosity of air-free liquid water at 101.325 kPa, in Pa s, at `temperature_c` (°C).
 ///
-/// This is the IAPWS 2008 formulation (Huber et al., "New international formulation for the
-/// viscosity of H2O", J. Phys. Chem. Ref. Data 38, 101 (2009), doi:10.1063/1.3088050;
-/// see [`iapws2008_viscosity_pa_s`]) with the critical enhancement factor set to 1, which is
-/// what the release prescribes for industrial use and is immaterial far from the critical point.
+/// This is the IAPWS 2008 formulation (Huber et al., J. Phys. Chem. Ref. Data 38, 101 (2009),
+/// doi:10.1063/1.3088050; see [`iapws2008_viscosity_pa_s`]) with the critical enhancement
+/// factor set to 1, which is immaterial far from the critical point.
 /// The density it needs is taken from [`water_density_kg_per_m3`] (Tanaka et al., Metrologia 38,
 /// 301 (2001)).
 ///
@@ -96,14 +95,13 @@ pub fn water_viscosity_pa_s(temperature_c: f64) -> Result<f64, WaterError> {
 
 /// Density of air-free water at 101.325 kPa, in kg/m3, at `temperature_c` (°C, ITS-90).
 ///
-/// Formula of Tanaka, Girard, Davis, Peuto & Bignell, "Recommended table for the density of
-/// water between 0 °C and 40 °C based on recent experimental reports", Metrologia 38, 301
-/// (2001):
+/// Formula of Tanaka et al., Metrologia 38, 301 (2001):
 ///
 /// rho(t) = a5 [1 - (t + a1)^2 (t + a2) / (a3 (t + a4))],
 ///
 /// with a1 = -3.983035 °C, a2 = 301.797 °C, a3 = 522528.9 °C^2, a4 = 69.34881 °C and
-/// a5 = 999.974950 kg/m3 (SMOW isotopic composition).
+/// a5 = 999.974950 kg/m3, for water of standard mean ocean water isotopic composition (from
+/// memory, unverified).
 ///
 /// Valid range: 0 to 40 °C inclusive, as in the paper; outside it, or for NaN, this returns a
 /// [`WaterError`].
@@ -129,9 +127,8 @@ fn tanaka2001_density_kg_per_m3(temperature_c: f64) -> f64 {
 /// The IAPWS 2008 viscosity of H2O, in Pa s, at absolute temperature `temperature_k` (K) and
 /// density `density_kg_per_m3`, with the critical enhancement mu2 set to 1.
 ///
-/// Huber, Perkins, Laesecke, Friend, Sengers, Assael, Metaxa, Vogel, Mares & Miyagawa,
-/// J. Phys. Chem. Ref. Data 38, 101 (2009), doi:10.1063/1.3088050 (IAPWS Release on the IAPWS
-/// Formulation 2008 for the Viscosity of Ordinary Water Substance). With reduced variables
+/// Huber et al., J. Phys. Chem. Ref. Data 38, 101 (2009), doi:10.1063/1.3088050, the basis of
+/// the IAPWS 2008 viscosity release. With reduced variables
 /// Tb = T / 647.096 K and rb = rho / 322 kg/m3, and mu* = 1 uPa s:
 ///
 /// mu = mu* mu0(Tb) mu1(Tb, rb),

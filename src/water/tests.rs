@@ -39,8 +39,8 @@ fn iapws2008_reproduces_the_release_check_value_at_ambient_liquid_state() {
 fn iapws2008_reproduces_the_release_check_values_over_the_whole_table() {
     // The other check points of the same table of the IAPWS 2008 release (Huber et al. 2009),
     // for mu2 = 1 (from memory, unverified against a copy of the release). Agreement to the
-    // printed digits at all points, spanning compressed liquid to dilute gas, is itself strong evidence that
-    // both these recalled values and the coefficients are right.
+    // printed digits at all points, spanning compressed liquid to dilute gas, is itself strong
+    // evidence that both these recalled values and the coefficients are right.
     check_iapws(298.15, 1200.0, 1437.649467);
     check_iapws(373.15, 1000.0, 307.883622);
     check_iapws(433.15, 1.0, 14.538324);
