@@ -1,1 +1,0 @@
-//! Placeholder: drag of a sphere (filled in by the drag/water work).

@@ -1,1 +1,0 @@
-//! Placeholder: water properties (filled in by the drag/water work).
