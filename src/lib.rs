@@ -7,6 +7,7 @@
 
 pub mod autocorrelation;
 pub mod drag;
+pub mod equipartition;
 pub mod ingest;
 pub mod recording;
 pub mod simulate;
