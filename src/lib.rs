@@ -6,9 +6,12 @@
 //! (file formats), `report` (wire types and text summaries) and `cli`.
 
 pub mod autocorrelation;
+pub mod calibration;
 pub mod drag;
 pub mod equipartition;
+pub mod findings;
 pub mod ingest;
+mod linalg;
 pub mod recording;
 pub mod simulate;
 pub mod spectrum;

@@ -3,6 +3,7 @@
 
 use super::model::{FilterSetting, Params, SpectrumModel};
 use super::{Block, Periodogram, block_periodogram};
+use crate::linalg::{invert_spd, solve_spd};
 use argmin::core::{CostFunction, Executor};
 use argmin::solver::neldermead::NelderMead;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
@@ -95,6 +96,15 @@ pub struct SpectrumFit {
     pub model_psd: Vec<f64>,
     /// Iterations of Fisher scoring used.
     pub iterations: usize,
+    /// The model that was fitted.
+    pub model: SpectrumModel,
+}
+
+impl SpectrumFit {
+    /// The fitted model's one-sided PSD at `f_hz`, signal-units^2/Hz.
+    pub fn model_psd_at(&self, f_hz: f64) -> f64 {
+        self.model.one_sided_psd(f_hz, &self.theta)
+    }
 }
 
 /// A fitted photodiode filter with standard errors.
@@ -185,27 +195,6 @@ impl CostFunction for Whittle<'_> {
     fn cost(&self, theta: &Self::Param) -> Result<Self::Output, argmin::core::Error> {
         Ok(self.cost_at(theta))
     }
-}
-
-/// Solves the small symmetric positive-definite system `a x = b` (Cholesky via nalgebra).
-pub(crate) fn solve_spd(a: &[Vec<f64>], b: &[f64]) -> Option<Vec<f64>> {
-    let n = b.len();
-    let m = nalgebra::DMatrix::from_fn(n, n, |i, j| a[i][j]);
-    let chol = m.cholesky()?;
-    let x = chol.solve(&nalgebra::DVector::from_column_slice(b));
-    Some(x.iter().copied().collect())
-}
-
-/// Inverse of a small symmetric positive-definite matrix.
-pub(crate) fn invert_spd(a: &[Vec<f64>]) -> Option<Vec<Vec<f64>>> {
-    let n = a.len();
-    let m = nalgebra::DMatrix::from_fn(n, n, |i, j| a[i][j]);
-    let inv = m.cholesky()?.inverse();
-    Some(
-        (0..n)
-            .map(|i| (0..n).map(|j| inv[(i, j)]).collect())
-            .collect(),
-    )
 }
 
 /// Fisher information F = sum_b n_b (d ln S_b)(d ln S_b)^T and score g = sum_b n_b (P_b/S_b - 1)
@@ -335,6 +324,7 @@ pub fn fit_spectrum(
         blocks,
         model_psd,
         iterations,
+        model: *model,
     })
 }
 
