@@ -69,7 +69,7 @@ pub enum IngestError {
     NoDataRows {
         /// File name as given by the caller.
         file: String,
-        /// Last line read before the end of the file.
+        /// Header line, or for a headerless file its last line.
         line: usize,
     },
 

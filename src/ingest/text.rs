@@ -14,8 +14,10 @@
 //!   whose names become the axis names. A position unit is a suffix `_nm`, `_V`, `_v` or a
 //!   bracketed unit `x (nm)`, `x [V]`; all position columns share one unit.
 //! - Headerless columns hold one to three position columns, named `x`, `y`, `z`; the first data
-//!   row decides the separator (comma if it has one, else tab if it has one, else runs of
-//!   spaces and tabs).
+//!   row decides the separator: a comma if it has one, else runs of spaces and tabs.
+//!
+//! CSV here is the unquoted subset of RFC 4180 (Common Format and MIME Type for CSV Files):
+//! data cells are never quoted, and LF line ends are accepted as well as CRLF.
 
 use super::{
     Format, IngestError, IngestOptions, MIN_SAMPLES, SNIFF_BYTES, axis_name, check_rate, finish,
@@ -190,7 +192,11 @@ fn parse_columns(
     options: &IngestOptions,
 ) -> Result<Recording, IngestError> {
     let first_row = cursor.current_line();
-    let sep = Sep::of_line(first_row);
+    let sep = if first_row.contains(&b',') {
+        Sep::Comma
+    } else {
+        Sep::Whitespace
+    };
     let n_cols = count_cells(first_row, sep);
     if n_cols > 3 {
         return Err(IngestError::TooManyColumns {
@@ -232,7 +238,7 @@ fn parse_headed(
     if n_rows == 0 {
         return Err(IngestError::NoDataRows {
             file: file.to_string(),
-            line: cursor.last_line(),
+            line: header_line,
         });
     }
     if n_rows < MIN_SAMPLES {
