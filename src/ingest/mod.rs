@@ -1,1 +1,364 @@
-//! Placeholder: file formats.
+//! File formats for bead recordings: text tables, raw little-endian binary and NumPy `.npy`.
+//!
+//! `parse` turns the bytes of one uploaded or local file into a `Recording`, and `encode` writes
+//! a `Recording` back in any of the same formats (used by `trapwise simulate`; everything it writes
+//! parses back to the same samples). Parsers take `&[u8]` and do no IO themselves, so the CLI and
+//! the HTTP service share them unchanged. Every failure is an `IngestError` naming the file and
+//! the place (line and column for text, byte offset for binary) with a hint of the fix; no input
+//! makes these functions panic.
+//!
+//! Formats read:
+//! - `csv` / `tsv`: a header row naming an optional time column and one to three position
+//!   columns (see `text`), comma or tab separated;
+//! - `columns`: headerless numeric columns, one to three positions, comma, tab or space
+//!   separated;
+//! - `raw-f32`, `raw-f64`, `raw-i16`: little-endian samples, channels interleaved;
+//! - `npy`: NumPy's array file (NEP 1, format versions 1.0 and 2.0).
+
+mod binary;
+mod error;
+mod npy;
+mod text;
+mod write;
+
+pub use error::IngestError;
+pub use write::encode;
+
+use crate::recording::{AxisTrace, PositionUnit, Recording};
+
+/// Minimum number of samples per axis a recording must have.
+///
+/// A power spectrum of fewer samples has too few frequency bins to fit a Lorentzian with any
+/// confidence (common practice).
+pub const MIN_SAMPLES: usize = 1024;
+
+/// Default relative tolerance on the uniformity of time steps and on the agreement between a
+/// given sample rate and a time column (common practice).
+pub const DEFAULT_TIME_TOLERANCE: f64 = 1e-3;
+
+/// The file formats trapwise reads and writes.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Format {
+    /// Comma-separated values with a header row.
+    Csv,
+    /// Tab-separated values with a header row.
+    Tsv,
+    /// Headerless numeric columns (positions only), comma, tab or space separated.
+    Columns,
+    /// Raw little-endian IEEE 754 single precision samples, channels interleaved.
+    RawF32,
+    /// Raw little-endian IEEE 754 double precision samples, channels interleaved.
+    RawF64,
+    /// Raw little-endian signed 16-bit detector counts, channels interleaved.
+    RawI16,
+    /// NumPy `.npy` array file (NEP 1).
+    Npy,
+}
+
+impl Format {
+    /// Every format, in a stable order (for help texts and tests).
+    pub const ALL: [Format; 7] = [
+        Format::Csv,
+        Format::Tsv,
+        Format::Columns,
+        Format::RawF32,
+        Format::RawF64,
+        Format::RawI16,
+        Format::Npy,
+    ];
+
+    /// The format with the given name (`name()`) or short alias (`f32`, `f64`, `i16`),
+    /// ignoring ASCII case and surrounding whitespace; `None` for anything else.
+    pub fn parse_name(s: &str) -> Option<Format> {
+        let s = s.trim();
+        let candidates: [(&str, Format); 10] = [
+            ("csv", Format::Csv),
+            ("tsv", Format::Tsv),
+            ("columns", Format::Columns),
+            ("raw-f32", Format::RawF32),
+            ("raw-f64", Format::RawF64),
+            ("raw-i16", Format::RawI16),
+            ("npy", Format::Npy),
+            ("f32", Format::RawF32),
+            ("f64", Format::RawF64),
+            ("i16", Format::RawI16),
+        ];
+        candidates
+            .iter()
+            .find(|(name, _)| name.eq_ignore_ascii_case(s))
+            .map(|&(_, format)| format)
+    }
+
+    /// The canonical lower-case name, accepted by `parse_name`.
+    pub fn name(self) -> &'static str {
+        match self {
+            Format::Csv => "csv",
+            Format::Tsv => "tsv",
+            Format::Columns => "columns",
+            Format::RawF32 => "raw-f32",
+            Format::RawF64 => "raw-f64",
+            Format::RawI16 => "raw-i16",
+            Format::Npy => "npy",
+        }
+    }
+
+    /// The file extension (without the dot) that `detect_format` maps back to this format.
+    pub fn extension(self) -> &'static str {
+        match self {
+            Format::Csv => "csv",
+            Format::Tsv => "tsv",
+            Format::Columns => "txt",
+            Format::RawF32 => "f32",
+            Format::RawF64 => "f64",
+            Format::RawI16 => "i16",
+            Format::Npy => "npy",
+        }
+    }
+}
+
+/// How to read a file: explicit overrides and the facts a file format may not carry.
+#[derive(Clone, Debug)]
+pub struct IngestOptions {
+    /// Explicit format; `None` detects it with `detect_format`.
+    pub format: Option<Format>,
+    /// Sample rate in hertz. Required for formats without a time column; with a time column it
+    /// must agree with it within `time_tolerance`.
+    pub sample_rate_hz: Option<f64>,
+    /// Unit of the positions. Text headers may give it with a suffix (`x_nm`, `x_V`) instead;
+    /// if both are given they must agree.
+    pub unit: Option<PositionUnit>,
+    /// Number of interleaved channels in raw binary files (1 to 3, default 1); ignored elsewhere.
+    pub channels: Option<usize>,
+    /// Volts per ADC count, scaling integer samples (raw i16, integer npy) to volts. Required
+    /// for raw i16; ignored for floating-point samples.
+    pub volts_per_count: Option<f64>,
+    /// Relative tolerance on uniform time steps and on sample-rate agreement (default 1e-3).
+    pub time_tolerance: f64,
+}
+
+impl Default for IngestOptions {
+    fn default() -> Self {
+        IngestOptions {
+            format: None,
+            sample_rate_hz: None,
+            unit: None,
+            channels: None,
+            volts_per_count: None,
+            time_tolerance: DEFAULT_TIME_TOLERANCE,
+        }
+    }
+}
+
+/// The `.npy` magic string (NEP 1, "A Simple File Format for NumPy Arrays").
+const NPY_MAGIC: &[u8] = b"\x93NUMPY";
+
+/// How many leading bytes content sniffing looks at.
+const SNIFF_BYTES: usize = 64 * 1024;
+
+/// Decides the format of a file from its name and first bytes.
+///
+/// Rules, in order: bytes starting with the `.npy` magic string are `Npy` whatever the name;
+/// then the extension (ASCII case ignored): `.npy`, `.f32`, `.f64`, `.i16` name their format;
+/// `.csv` and `.tsv` are `Csv` and `Tsv` unless their first non-comment line is all numbers,
+/// which makes them headerless `Columns`; `.txt`, `.dat` and names without a known extension
+/// are sniffed: text (UTF-8 with digits and line breaks, no control bytes) whose first
+/// non-comment line is all numbers is `Columns`, a header with commas is `Csv`, with tabs `Tsv`.
+/// `.bin` and anything else is an `UnknownFormat` error asking for an explicit format.
+pub fn detect_format(file_name: &str, bytes: &[u8]) -> Result<Format, IngestError> {
+    if bytes.starts_with(NPY_MAGIC) {
+        return Ok(Format::Npy);
+    }
+    let base = file_name.rsplit(['/', '\\']).next().unwrap_or(file_name);
+    let extension = base
+        .rsplit_once('.')
+        .map(|(_, ext)| ext.to_ascii_lowercase());
+    let unknown = |reason: String| IngestError::UnknownFormat {
+        file: file_name.to_string(),
+        reason,
+    };
+    match extension.as_deref() {
+        Some("npy") => Ok(Format::Npy),
+        Some("f32") => Ok(Format::RawF32),
+        Some("f64") => Ok(Format::RawF64),
+        Some("i16") => Ok(Format::RawI16),
+        Some("csv") => Ok(text::sniff(bytes).map_or(Format::Csv, |s| s.headed_or(Format::Csv))),
+        Some("tsv") => Ok(text::sniff(bytes).map_or(Format::Tsv, |s| s.headed_or(Format::Tsv))),
+        Some("bin") => Err(unknown(
+            "the extension '.bin', which may hold any sample type".to_string(),
+        )),
+        other => {
+            if bytes.is_empty() {
+                return Err(IngestError::Empty {
+                    file: file_name.to_string(),
+                });
+            }
+            let known_text = matches!(other, Some("txt" | "dat"));
+            match text::sniff(bytes) {
+                Some(sniffed) => Ok(sniffed.format()),
+                None if known_text => Ok(Format::Columns),
+                None => Err(unknown(match other {
+                    Some(ext) => format!(
+                        "the extension '.{}' or the content",
+                        ext.chars().take(16).collect::<String>()
+                    ),
+                    None => "the content (the name has no extension)".to_string(),
+                })),
+            }
+        }
+    }
+}
+
+/// Reads one recording file.
+///
+/// `file_name` is used for format detection (see `detect_format`) and in error messages only.
+/// The format is `options.format` if given, else detected. Returns a `Recording` with one to
+/// three axes of at least `MIN_SAMPLES` finite samples each, a positive finite sample rate in
+/// hertz and one unit. With a time column the sample rate is (n - 1)/(t_last - t_first).
+pub fn parse(
+    file_name: &str,
+    bytes: &[u8],
+    options: &IngestOptions,
+) -> Result<Recording, IngestError> {
+    validate_options(file_name, options)?;
+    if bytes.is_empty() {
+        return Err(IngestError::Empty {
+            file: file_name.to_string(),
+        });
+    }
+    let format = match options.format {
+        Some(format) => format,
+        None => detect_format(file_name, bytes)?,
+    };
+    match format {
+        Format::Csv | Format::Tsv | Format::Columns => {
+            text::parse_text(file_name, bytes, format, options)
+        }
+        Format::RawF32 | Format::RawF64 | Format::RawI16 => {
+            binary::parse_raw(file_name, bytes, format, options)
+        }
+        Format::Npy => npy::parse_npy(file_name, bytes, options),
+    }
+}
+
+/// Rejects option values no file could make sense of, before any byte is read.
+fn validate_options(file: &str, options: &IngestOptions) -> Result<(), IngestError> {
+    let tolerance = options.time_tolerance;
+    if !(tolerance.is_finite() && tolerance >= 0.0) {
+        return Err(IngestError::ToleranceInvalid {
+            file: file.to_string(),
+            value: tolerance,
+        });
+    }
+    if let Some(rate) = options.sample_rate_hz {
+        check_rate(file, rate)?;
+    }
+    if let Some(channels) = options.channels.filter(|c| !(1..=3).contains(c)) {
+        return Err(IngestError::ChannelsInvalid {
+            file: file.to_string(),
+            channels,
+        });
+    }
+    let bad_scale = |v: &f64| !(v.is_finite() && *v > 0.0);
+    if let Some(value) = options.volts_per_count.filter(bad_scale) {
+        return Err(IngestError::VoltsPerCountInvalid {
+            file: file.to_string(),
+            value,
+        });
+    }
+    Ok(())
+}
+
+/// Checks that a sample rate is positive and finite.
+fn check_rate(file: &str, rate_hz: f64) -> Result<f64, IngestError> {
+    if rate_hz.is_finite() && rate_hz > 0.0 {
+        Ok(rate_hz)
+    } else {
+        Err(IngestError::SampleRateInvalid {
+            file: file.to_string(),
+            value: rate_hz,
+        })
+    }
+}
+
+/// The sample rate for a format without time stamps: the option, which must be present.
+fn required_rate(file: &str, format: Format, options: &IngestOptions) -> Result<f64, IngestError> {
+    match options.sample_rate_hz {
+        Some(rate) => check_rate(file, rate),
+        None => Err(IngestError::SampleRateMissing {
+            file: file.to_string(),
+            format: format.name(),
+        }),
+    }
+}
+
+/// The unit for a format that does not record it: the option, which must be present.
+fn required_unit(
+    file: &str,
+    format: &'static str,
+    options: &IngestOptions,
+) -> Result<PositionUnit, IngestError> {
+    options.unit.ok_or_else(|| IngestError::UnitRequired {
+        file: file.to_string(),
+        format,
+    })
+}
+
+/// How integer samples become positions: scaled to volts, or taken as nanometres.
+///
+/// With `volts_per_count` the samples are counts times volts per count, in volts (asking for nm
+/// as well is a conflict). Without it, integers are nanometres if the unit nm was requested and
+/// `allow_nm` holds; otherwise the volts per count is missing.
+fn integer_scale(
+    file: &str,
+    dtype: &str,
+    options: &IngestOptions,
+    allow_nm: bool,
+) -> Result<(f64, PositionUnit), IngestError> {
+    match (options.volts_per_count, options.unit) {
+        (Some(_), Some(PositionUnit::Nanometre)) => Err(IngestError::VoltsPerCountUnitConflict {
+            file: file.to_string(),
+        }),
+        (Some(volts_per_count), _) => Ok((volts_per_count, PositionUnit::Volt)),
+        (None, Some(PositionUnit::Nanometre)) if allow_nm => Ok((1.0, PositionUnit::Nanometre)),
+        (None, _) => Err(IngestError::VoltsPerCountMissing {
+            file: file.to_string(),
+            dtype: dtype.to_string(),
+            hint: if allow_nm {
+                ", or the unit nm if the integers are nanometres"
+            } else {
+                ""
+            },
+        }),
+    }
+}
+
+/// Names positional axes `x`, `y`, `z` in order.
+fn axis_name(axis_idx: usize) -> String {
+    ["x", "y", "z"]
+        .get(axis_idx)
+        .map_or_else(|| format!("axis{axis_idx}"), |name| (*name).to_string())
+}
+
+/// Assembles the final recording after checking the sample count.
+fn finish(
+    file: &str,
+    sample_rate_hz: f64,
+    unit: PositionUnit,
+    axes: Vec<AxisTrace>,
+) -> Result<Recording, IngestError> {
+    let n_samples = axes.first().map_or(0, |a| a.samples.len());
+    if n_samples < MIN_SAMPLES {
+        return Err(IngestError::TooFewSamples {
+            file: file.to_string(),
+            found: n_samples,
+        });
+    }
+    Ok(Recording {
+        sample_rate_hz,
+        unit,
+        axes,
+    })
+}
+
+#[cfg(test)]
+mod tests;

@@ -1,0 +1,757 @@
+//! Text tables: CSV and TSV with a header row, and headerless numeric columns.
+//!
+//! A hand-written scanner walks the bytes once, parsing each cell in place with `fast_float2`
+//! and tracking the line (1-based, physical lines) and the column (1-based cell index), so that a
+//! bad cell is reported where it is without any per-line allocation. The layout rules:
+//!
+//! - An optional UTF-8 byte order mark; lines end in LF or CRLF; `#` lines and blank lines
+//!   before the header (or before the first row of a headerless file) are skipped; blank lines
+//!   after the last row are allowed, blank lines between rows are an error.
+//! - CSV separates cells with `,`, TSV with a tab; spaces (and, for CSV, tabs) around cells are
+//!   ignored; header labels may be wrapped in double quotes.
+//! - The header names an optional time column (`t` or `time`, any ASCII case, in seconds, or
+//!   with unit `ms` or `us`: `time_s`, `t_ms`, `time (us)`) and one to three position columns
+//!   whose names become the axis names. A position unit is a suffix `_nm`, `_V`, `_v` or a
+//!   bracketed unit `x (nm)`, `x [V]`; all position columns share one unit.
+//! - Headerless columns hold one to three position columns, named `x`, `y`, `z`; the first data
+//!   row decides the separator: a comma if it has one, else runs of spaces and tabs.
+//!
+//! CSV here is the unquoted subset of RFC 4180 (Common Format and MIME Type for CSV Files):
+//! data cells are never quoted, and LF line ends are accepted as well as CRLF.
+
+use super::{
+    Format, IngestError, IngestOptions, MIN_SAMPLES, SNIFF_BYTES, axis_name, check_rate, finish,
+    required_rate, required_unit,
+};
+use crate::recording::{AxisTrace, PositionUnit, Recording};
+
+/// The UTF-8 byte order mark some editors put at the start of text files.
+const BOM: &[u8] = b"\xEF\xBB\xBF";
+
+/// How many characters of a bad cell an error message quotes.
+const MAX_QUOTED_CHARS: usize = 40;
+
+/// The cell separator of a table.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Sep {
+    /// A single comma; spaces and tabs around cells are ignored.
+    Comma,
+    /// A single tab; spaces around cells are ignored.
+    Tab,
+    /// One or more spaces or tabs.
+    Whitespace,
+}
+
+impl Sep {
+    /// The separator byte, if the separator is a single byte.
+    fn byte(self) -> Option<u8> {
+        match self {
+            Sep::Comma => Some(b','),
+            Sep::Tab => Some(b'\t'),
+            Sep::Whitespace => None,
+        }
+    }
+
+    /// The separator of a line: comma if present, else tab if present, else whitespace.
+    fn of_line(line: &[u8]) -> Sep {
+        if line.contains(&b',') {
+            Sep::Comma
+        } else if line.contains(&b'\t') {
+            Sep::Tab
+        } else {
+            Sep::Whitespace
+        }
+    }
+
+    /// Whether padding around cells may contain tabs (not when the tab is the separator).
+    fn pads_with_tab(self) -> bool {
+        self != Sep::Tab
+    }
+}
+
+/// What content sniffing found out about a text file.
+#[derive(Clone, Copy, Debug)]
+pub(super) struct Sniffed {
+    /// The first row that is not a comment is all numbers.
+    numeric_first_row: bool,
+    /// Separator of that row.
+    sep: Sep,
+}
+
+impl Sniffed {
+    /// `Columns` for a numeric first row, else the given headed format.
+    pub(super) fn headed_or(self, headed: Format) -> Format {
+        if self.numeric_first_row {
+            Format::Columns
+        } else {
+            headed
+        }
+    }
+
+    /// `Columns` for a numeric first row, else `Csv` or `Tsv` by separator (a header separated
+    /// by spaces is left to the `Columns` parser, which reports its first non-numeric cell).
+    pub(super) fn format(self) -> Format {
+        match (self.numeric_first_row, self.sep) {
+            (false, Sep::Comma) => Format::Csv,
+            (false, Sep::Tab) => Format::Tsv,
+            _ => Format::Columns,
+        }
+    }
+}
+
+/// Looks at the first `SNIFF_BYTES` bytes: text if they are UTF-8 (a character cut at the end
+/// is allowed), contain a digit and a line feed, and no control byte other than tab, CR and LF.
+/// Returns `None` for anything that is not such text or has no row after the comments.
+pub(super) fn sniff(bytes: &[u8]) -> Option<Sniffed> {
+    let prefix = bytes.get(..SNIFF_BYTES).unwrap_or(bytes);
+    let prefix = prefix.strip_prefix(BOM).unwrap_or(prefix);
+    let text = match std::str::from_utf8(prefix) {
+        Ok(text) => text,
+        Err(e) if e.error_len().is_none() => {
+            std::str::from_utf8(prefix.get(..e.valid_up_to())?).ok()?
+        }
+        Err(_) => return None,
+    };
+    let is_control = |b: u8| b.is_ascii_control() && !matches!(b, b'\t' | b'\r' | b'\n');
+    if text.bytes().any(is_control)
+        || !text.bytes().any(|b| b.is_ascii_digit())
+        || !text.contains('\n')
+    {
+        return None;
+    }
+    let row = text
+        .lines()
+        .map(str::trim)
+        .find(|line| !line.is_empty() && !line.starts_with('#'))?;
+    let sep = Sep::of_line(row.as_bytes());
+    let numeric_first_row = split_cells(row, sep).all(|cell| is_number(cell.trim()));
+    Some(Sniffed {
+        numeric_first_row,
+        sep,
+    })
+}
+
+/// Splits a line into cells by the separator (cells not trimmed).
+fn split_cells(line: &str, sep: Sep) -> Box<dyn Iterator<Item = &str> + '_> {
+    match sep {
+        Sep::Comma => Box::new(line.split(',')),
+        Sep::Tab => Box::new(line.split('\t')),
+        Sep::Whitespace => Box::new(line.split_ascii_whitespace()),
+    }
+}
+
+/// Whether the whole text is one number as `fast_float2` reads it.
+fn is_number(cell: &str) -> bool {
+    fast_float2::parse::<f64, _>(cell).is_ok()
+}
+
+/// Reads a CSV, TSV or headerless-columns file (see the module documentation for the layout).
+pub(super) fn parse_text(
+    file: &str,
+    bytes: &[u8],
+    format: Format,
+    options: &IngestOptions,
+) -> Result<Recording, IngestError> {
+    if let Err(e) = std::str::from_utf8(bytes) {
+        let byte_offset = e.valid_up_to();
+        return Err(IngestError::InvalidUtf8 {
+            file: file.to_string(),
+            line: 1 + count_line_feeds(bytes.get(..byte_offset).unwrap_or(bytes)),
+            byte_offset,
+        });
+    }
+    let mut cursor = Cursor {
+        bytes,
+        pos: if bytes.starts_with(BOM) { BOM.len() } else { 0 },
+        line: 1,
+    };
+    cursor.skip_preamble();
+    if cursor.at_end() {
+        return Err(match format {
+            Format::Columns => IngestError::NoDataRows {
+                file: file.to_string(),
+                line: cursor.last_line(),
+            },
+            _ => IngestError::NoHeader {
+                file: file.to_string(),
+                line: cursor.last_line(),
+            },
+        });
+    }
+    match format {
+        Format::Tsv => parse_headed(file, &mut cursor, Sep::Tab, format, options),
+        Format::Columns => parse_columns(file, &mut cursor, options),
+        _ => parse_headed(file, &mut cursor, Sep::Comma, Format::Csv, options),
+    }
+}
+
+/// Reads a headerless table of one to three position columns.
+fn parse_columns(
+    file: &str,
+    cursor: &mut Cursor<'_>,
+    options: &IngestOptions,
+) -> Result<Recording, IngestError> {
+    let first_row = cursor.current_line();
+    let sep = if first_row.contains(&b',') {
+        Sep::Comma
+    } else {
+        Sep::Whitespace
+    };
+    let n_cols = count_cells(first_row, sep);
+    if n_cols > 3 {
+        return Err(IngestError::TooManyColumns {
+            file: file.to_string(),
+            line: cursor.line,
+            found: n_cols,
+        });
+    }
+    let unit = required_unit(file, Format::Columns.name(), options)?;
+    let sample_rate_hz = required_rate(file, Format::Columns, options)?;
+    let columns = scan_rows(file, cursor, n_cols, sep, "first row")?;
+    let axes = columns
+        .into_iter()
+        .enumerate()
+        .map(|(axis_idx, samples)| AxisTrace {
+            name: axis_name(axis_idx),
+            samples,
+        })
+        .collect();
+    finish(file, sample_rate_hz, unit, axes)
+}
+
+/// Reads a CSV or TSV table with a header row.
+fn parse_headed(
+    file: &str,
+    cursor: &mut Cursor<'_>,
+    sep: Sep,
+    format: Format,
+    options: &IngestOptions,
+) -> Result<Recording, IngestError> {
+    let header_line = cursor.line;
+    let header_bytes = cursor.take_line();
+    // The whole file was checked to be UTF-8 and lines are cut at ASCII bytes.
+    let header_text = std::str::from_utf8(header_bytes).unwrap_or_default();
+    let header = parse_header(file, header_line, header_text, sep, format, options)?;
+    let first_data_line = cursor.line;
+    let mut columns = scan_rows(file, cursor, header.n_cols, sep, "header")?;
+    let n_rows = columns.first().map_or(0, Vec::len);
+    if n_rows == 0 {
+        return Err(IngestError::NoDataRows {
+            file: file.to_string(),
+            line: header_line,
+        });
+    }
+    if n_rows < MIN_SAMPLES {
+        return Err(IngestError::TooFewSamples {
+            file: file.to_string(),
+            found: n_rows,
+        });
+    }
+    let sample_rate_hz = match header.time {
+        Some((col_idx, seconds_per_unit)) => {
+            let mut times_s = columns
+                .get_mut(col_idx)
+                .map(std::mem::take)
+                .unwrap_or_default();
+            if seconds_per_unit != 1.0 {
+                times_s.iter_mut().for_each(|t| *t *= seconds_per_unit);
+            }
+            rate_from_times(file, &times_s, first_data_line, options)?
+        }
+        None => required_rate(file, format, options)?,
+    };
+    let axes = header
+        .positions
+        .into_iter()
+        .map(|(col_idx, name)| AxisTrace {
+            name,
+            samples: columns
+                .get_mut(col_idx)
+                .map(std::mem::take)
+                .unwrap_or_default(),
+        })
+        .collect();
+    finish(file, sample_rate_hz, header.unit, axes)
+}
+
+/// Sample rate (n - 1)/(t_last - t_first) from a time column in seconds, after checking that
+/// the time stamps strictly increase and that every step is within the relative tolerance of
+/// the mean step, and that a given rate agrees within the same tolerance.
+///
+/// `first_line` is the line of the first time stamp; rows are on consecutive lines.
+fn rate_from_times(
+    file: &str,
+    times_s: &[f64],
+    first_line: usize,
+    options: &IngestOptions,
+) -> Result<f64, IngestError> {
+    let tolerance = options.time_tolerance;
+    for (row_idx, pair) in times_s.windows(2).enumerate() {
+        if let [previous_s, found_s] = *pair {
+            if found_s <= previous_s {
+                return Err(IngestError::TimeNotIncreasing {
+                    file: file.to_string(),
+                    line: first_line + row_idx + 1,
+                    previous_s,
+                    found_s,
+                });
+            }
+        }
+    }
+    let (Some(&first_s), Some(&last_s)) = (times_s.first(), times_s.last()) else {
+        return required_rate(file, Format::Csv, options);
+    };
+    let n_steps = times_s.len().saturating_sub(1).max(1) as f64;
+    let span_s = last_s - first_s;
+    let mean_step_s = span_s / n_steps;
+    for (row_idx, pair) in times_s.windows(2).enumerate() {
+        if let [previous_s, next_s] = *pair {
+            let step_s = next_s - previous_s;
+            if (step_s - mean_step_s).abs() > tolerance * mean_step_s {
+                return Err(IngestError::TimeStepNotUniform {
+                    file: file.to_string(),
+                    line: first_line + row_idx + 1,
+                    expected_step_s: mean_step_s,
+                    found_step_s: step_s,
+                    tolerance,
+                });
+            }
+        }
+    }
+    let time_column_hz = check_rate(file, n_steps / span_s)?;
+    let conflicting =
+        |given_hz: &f64| (given_hz - time_column_hz).abs() > tolerance * time_column_hz;
+    if let Some(given_hz) = options.sample_rate_hz.filter(conflicting) {
+        return Err(IngestError::SampleRateConflict {
+            file: file.to_string(),
+            given_hz,
+            time_column_hz,
+            tolerance,
+        });
+    }
+    Ok(time_column_hz)
+}
+
+/// The meaning of a header row.
+#[derive(Debug)]
+struct Header {
+    /// Number of cells per row.
+    n_cols: usize,
+    /// Column index of the time column and the seconds per unit of its values.
+    time: Option<(usize, f64)>,
+    /// Column index and axis name of each position column, in file order.
+    positions: Vec<(usize, String)>,
+    /// Unit shared by all position columns.
+    unit: PositionUnit,
+}
+
+/// What a header label says about its column.
+enum Role<'a> {
+    /// Time column with this many seconds per unit.
+    Time(f64),
+    /// Position column with this name and, if written, this unit.
+    Position(&'a str, Option<PositionUnit>),
+}
+
+/// Interprets the header row (see the module documentation).
+fn parse_header(
+    file: &str,
+    line: usize,
+    text: &str,
+    sep: Sep,
+    format: Format,
+    options: &IngestOptions,
+) -> Result<Header, IngestError> {
+    if split_cells(text, sep).all(|cell| is_number(cell.trim())) {
+        return Err(IngestError::NumericHeader {
+            file: file.to_string(),
+            line,
+            format: format.name(),
+        });
+    }
+    let mut n_cols = 0;
+    let mut time = None;
+    let mut positions: Vec<(usize, String)> = Vec::with_capacity(3);
+    let mut unit: Option<PositionUnit> = None;
+    for (col_idx, raw) in split_cells(text, sep).enumerate() {
+        n_cols += 1;
+        let column = col_idx + 1;
+        let label = unquote(raw.trim());
+        match classify_label(file, line, column, label)? {
+            Role::Time(seconds_per_unit) => {
+                if time.is_some() {
+                    return Err(IngestError::DuplicateColumn {
+                        file: file.to_string(),
+                        line,
+                        column,
+                        name: label.to_string(),
+                    });
+                }
+                time = Some((col_idx, seconds_per_unit));
+            }
+            Role::Position(name, header_unit) => {
+                if positions.iter().any(|(_, other)| other == name) {
+                    return Err(IngestError::DuplicateColumn {
+                        file: file.to_string(),
+                        line,
+                        column,
+                        name: name.to_string(),
+                    });
+                }
+                if positions.len() == 3 {
+                    return Err(IngestError::TooManyColumns {
+                        file: file.to_string(),
+                        line,
+                        found: 4,
+                    });
+                }
+                let column_unit = resolve_unit(file, line, column, label, header_unit, options)?;
+                match unit {
+                    Some(first_unit) if first_unit != column_unit => {
+                        return Err(IngestError::MixedUnits {
+                            file: file.to_string(),
+                            line,
+                            column,
+                            label: label.to_string(),
+                            unit: column_unit,
+                            first_unit,
+                        });
+                    }
+                    _ => unit = Some(column_unit),
+                }
+                positions.push((col_idx, name.to_string()));
+            }
+        }
+    }
+    match unit {
+        Some(unit) => Ok(Header {
+            n_cols,
+            time,
+            positions,
+            unit,
+        }),
+        None => Err(IngestError::NoPositionColumn {
+            file: file.to_string(),
+            line,
+        }),
+    }
+}
+
+/// The unit of one position column: from the header, from the option, both agreeing, or an
+/// error.
+fn resolve_unit(
+    file: &str,
+    line: usize,
+    column: usize,
+    label: &str,
+    header_unit: Option<PositionUnit>,
+    options: &IngestOptions,
+) -> Result<PositionUnit, IngestError> {
+    match (header_unit, options.unit) {
+        (Some(header_unit), Some(requested_unit)) if header_unit != requested_unit => {
+            Err(IngestError::UnitConflict {
+                file: file.to_string(),
+                line,
+                column,
+                header_unit,
+                requested_unit,
+            })
+        }
+        (Some(unit), _) | (None, Some(unit)) => Ok(unit),
+        (None, None) => Err(IngestError::MissingUnit {
+            file: file.to_string(),
+            line,
+            column,
+            label: label.to_string(),
+        }),
+    }
+}
+
+/// Removes one pair of surrounding double quotes.
+fn unquote(label: &str) -> &str {
+    label
+        .strip_prefix('"')
+        .and_then(|inner| inner.strip_suffix('"'))
+        .map_or(label, str::trim)
+}
+
+/// Decides whether a label names the time column or a position column, and its unit.
+fn classify_label<'a>(
+    file: &str,
+    line: usize,
+    column: usize,
+    label: &'a str,
+) -> Result<Role<'a>, IngestError> {
+    let (name, unit_text) = split_label(label);
+    if name.is_empty() {
+        return Err(IngestError::EmptyLabel {
+            file: file.to_string(),
+            line,
+            column,
+        });
+    }
+    let unsupported = |unit: &str| IngestError::UnsupportedUnit {
+        file: file.to_string(),
+        line,
+        column,
+        unit: unit.chars().take(MAX_QUOTED_CHARS).collect(),
+    };
+    let position_unit = match unit_text {
+        None => None,
+        Some("nm") => Some(PositionUnit::Nanometre),
+        Some("V" | "v") => Some(PositionUnit::Volt),
+        Some(_) => None,
+    };
+    let seconds_per_unit = match unit_text {
+        None | Some("s") => Some(1.0),
+        Some("ms") => Some(1e-3),
+        Some("us" | "µs") => Some(1e-6),
+        Some(_) => None,
+    };
+    let is_time_name = name.eq_ignore_ascii_case("t") || name.eq_ignore_ascii_case("time");
+    match (is_time_name, seconds_per_unit, position_unit, unit_text) {
+        (true, Some(seconds_per_unit), _, _) => Ok(Role::Time(seconds_per_unit)),
+        (_, _, Some(unit), _) => Ok(Role::Position(name, Some(unit))),
+        (_, _, None, None) => Ok(Role::Position(name, None)),
+        (_, _, None, Some(unit)) => Err(unsupported(unit)),
+    }
+}
+
+/// Splits a label into name and unit text: `x (nm)` and `x [V]` always carry a unit; `x_nm`
+/// carries one only if the suffix is a unit we know (nm, V, v, s, ms, us), so that labels such
+/// as `bead_1` keep their underscore.
+fn split_label(label: &str) -> (&str, Option<&str>) {
+    for (open, close) in [('(', ')'), ('[', ']')] {
+        let bracketed = label
+            .strip_suffix(close)
+            .and_then(|without_close| without_close.rsplit_once(open));
+        if let Some((name, unit)) = bracketed {
+            return (name.trim_end(), Some(unit.trim()));
+        }
+    }
+    match label.rsplit_once('_') {
+        Some((name, suffix)) if matches!(suffix, "nm" | "V" | "v" | "s" | "ms" | "us" | "µs") => {
+            (name, Some(suffix))
+        }
+        _ => (label, None),
+    }
+}
+
+/// A position in the text with its 1-based line number.
+struct Cursor<'a> {
+    /// The whole file.
+    bytes: &'a [u8],
+    /// Offset of the next unread byte (always at the start of a line between calls).
+    pos: usize,
+    /// Line number of `pos`.
+    line: usize,
+}
+
+impl<'a> Cursor<'a> {
+    /// Whether all bytes are read.
+    fn at_end(&self) -> bool {
+        self.pos >= self.bytes.len()
+    }
+
+    /// The last line of the file (a final line feed does not start a new line).
+    fn last_line(&self) -> usize {
+        let n_feeds = count_line_feeds(self.bytes);
+        if self.bytes.last() == Some(&b'\n') || self.bytes.is_empty() {
+            n_feeds.max(1)
+        } else {
+            n_feeds + 1
+        }
+    }
+
+    /// The current line without its line ending, not consumed.
+    fn current_line(&self) -> &'a [u8] {
+        let rest = self.bytes.get(self.pos..).unwrap_or_default();
+        let end = rest.iter().position(|&b| b == b'\n').unwrap_or(rest.len());
+        let line = rest.get(..end).unwrap_or_default();
+        line.strip_suffix(b"\r").unwrap_or(line)
+    }
+
+    /// Returns the current line without its line ending and moves to the next line.
+    fn take_line(&mut self) -> &'a [u8] {
+        let rest = self.bytes.get(self.pos..).unwrap_or_default();
+        let line = self.current_line();
+        match rest.iter().position(|&b| b == b'\n') {
+            Some(end) => {
+                self.pos += end + 1;
+                self.line += 1;
+            }
+            None => self.pos = self.bytes.len(),
+        }
+        line
+    }
+
+    /// Skips blank lines and `#` comment lines.
+    fn skip_preamble(&mut self) {
+        while !self.at_end() {
+            let line = self.current_line().trim_ascii();
+            if !(line.is_empty() || line.starts_with(b"#")) {
+                return;
+            }
+            self.take_line();
+        }
+    }
+}
+
+/// Number of line feeds in the bytes.
+fn count_line_feeds(bytes: &[u8]) -> usize {
+    bytes.iter().filter(|&&b| b == b'\n').count()
+}
+
+/// Number of cells of a line for the separator.
+fn count_cells(line: &[u8], sep: Sep) -> usize {
+    match sep.byte() {
+        Some(sep) => 1 + line.iter().filter(|&&b| b == sep).count(),
+        None => line
+            .split(|b| b.is_ascii_whitespace())
+            .filter(|cell| !cell.is_empty())
+            .count(),
+    }
+}
+
+/// Skips spaces, and tabs if `tabs`, from `pos`.
+#[inline]
+fn skip_padding(bytes: &[u8], mut pos: usize, tabs: bool) -> usize {
+    while let Some(&b) = bytes.get(pos) {
+        if b == b' ' || (tabs && b == b'\t') {
+            pos += 1;
+        } else {
+            break;
+        }
+    }
+    pos
+}
+
+/// Whether `pos` is at a line ending (LF, CRLF, a final CR) or at the end of the bytes.
+#[inline]
+fn at_line_end(bytes: &[u8], pos: usize) -> bool {
+    match bytes.get(pos) {
+        None | Some(b'\n') => true,
+        Some(b'\r') => matches!(bytes.get(pos + 1), None | Some(b'\n')),
+        Some(_) => false,
+    }
+}
+
+/// The text of the cell starting at `start`, shortened for an error message.
+fn quote_cell(bytes: &[u8], start: usize, sep: Sep) -> String {
+    let rest = bytes.get(start..).unwrap_or_default();
+    let end = rest
+        .iter()
+        .position(|&b| match sep.byte() {
+            Some(sep) => b == sep || b == b'\n' || b == b'\r',
+            None => b.is_ascii_whitespace(),
+        })
+        .unwrap_or(rest.len());
+    let cell = rest.get(..end).unwrap_or_default().trim_ascii();
+    String::from_utf8_lossy(cell)
+        .chars()
+        .take(MAX_QUOTED_CHARS)
+        .collect()
+}
+
+/// Reads data rows of `n_cols` numeric cells from the cursor to the end of the file, returning
+/// one vector per column. `reference` names what fixed `n_cols` ("header" or "first row").
+fn scan_rows(
+    file: &str,
+    cursor: &mut Cursor<'_>,
+    n_cols: usize,
+    sep: Sep,
+    reference: &'static str,
+) -> Result<Vec<Vec<f64>>, IngestError> {
+    let bytes = cursor.bytes;
+    let mut pos = cursor.pos;
+    let mut line = cursor.line;
+    // Pre-size from the length of the first row; the estimate cannot exceed one row per two
+    // bytes, the shortest possible row.
+    let remaining = bytes.len().saturating_sub(pos);
+    let first_row_bytes = cursor.current_line().len() + 1;
+    let estimate = remaining / first_row_bytes + remaining / first_row_bytes / 16 + 1;
+    let capacity = estimate.min(remaining / 2 + 1);
+    let mut columns: Vec<Vec<f64>> = (0..n_cols).map(|_| Vec::with_capacity(capacity)).collect();
+    let tabs = sep.pads_with_tab();
+    let ragged = |line: usize, row_start: usize, found: Option<usize>| {
+        let found = found.unwrap_or_else(|| {
+            let rest = bytes.get(row_start..).unwrap_or_default();
+            let end = rest.iter().position(|&b| b == b'\n').unwrap_or(rest.len());
+            count_cells(rest.get(..end).unwrap_or_default(), sep)
+        });
+        IngestError::RaggedRow {
+            file: file.to_string(),
+            line,
+            expected: n_cols,
+            found,
+            reference,
+        }
+    };
+    let non_numeric = |line: usize, column: usize, start: usize| IngestError::NonNumericCell {
+        file: file.to_string(),
+        line,
+        column,
+        cell: quote_cell(bytes, start, sep),
+    };
+    while pos < bytes.len() {
+        let row_start = pos;
+        if at_line_end(bytes, skip_padding(bytes, pos, true)) {
+            // A blank line: only blank lines may follow.
+            let rest = bytes.get(pos..).unwrap_or_default();
+            if rest.iter().all(u8::is_ascii_whitespace) {
+                break;
+            }
+            return Err(IngestError::BlankLine {
+                file: file.to_string(),
+                line,
+            });
+        }
+        for (col_idx, column) in columns.iter_mut().enumerate() {
+            pos = skip_padding(bytes, pos, tabs);
+            let cell_start = pos;
+            let rest = bytes.get(pos..).unwrap_or_default();
+            let Ok((value, n_read)) = fast_float2::parse_partial::<f64, _>(rest) else {
+                return Err(non_numeric(line, col_idx + 1, cell_start));
+            };
+            pos += n_read;
+            let number_end = pos;
+            pos = skip_padding(bytes, pos, tabs);
+            let is_last = col_idx + 1 == n_cols;
+            if at_line_end(bytes, pos) {
+                if !is_last {
+                    return Err(ragged(line, row_start, Some(col_idx + 1)));
+                }
+            } else if sep.byte().is_some_and(|s| bytes.get(pos) == Some(&s)) {
+                if is_last {
+                    return Err(ragged(line, row_start, None));
+                }
+                pos += 1;
+            } else if sep == Sep::Whitespace && pos > number_end {
+                if is_last {
+                    return Err(ragged(line, row_start, None));
+                }
+            } else {
+                return Err(non_numeric(line, col_idx + 1, cell_start));
+            }
+            if !value.is_finite() {
+                return Err(IngestError::NonFiniteCell {
+                    file: file.to_string(),
+                    line,
+                    column: col_idx + 1,
+                    cell: quote_cell(bytes, cell_start, sep),
+                });
+            }
+            column.push(value);
+        }
+        if bytes.get(pos) == Some(&b'\r') {
+            pos += 1;
+        }
+        if bytes.get(pos) == Some(&b'\n') {
+            pos += 1;
+            line += 1;
+        }
+    }
+    cursor.pos = pos;
+    cursor.line = line;
+    Ok(columns)
+}
