@@ -13,6 +13,7 @@ pub mod findings;
 pub mod ingest;
 mod linalg;
 pub mod recording;
+pub mod report;
 pub mod simulate;
 pub mod spectrum;
 pub mod water;

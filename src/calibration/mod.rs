@@ -229,6 +229,9 @@ pub struct AxisCalibration {
     pub histogram: Histogram,
     /// Whether the errors include the run conditions' uncertainties.
     pub includes_input_errors: bool,
+    /// Sampling rate, Hz, and the periodogram's frequency resolution, Hz.
+    pub sample_rate_hz: f64,
+    pub resolution_hz: f64,
 }
 
 /// The calibration of a whole recording.
@@ -653,6 +656,8 @@ fn calibrate_axis(
         peaks,
         histogram,
         includes_input_errors: input_se.iter().any(|s| *s > 0.0),
+        sample_rate_hz,
+        resolution_hz: periodogram.resolution_hz(),
     })
 }
 

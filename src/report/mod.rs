@@ -1,0 +1,531 @@
+//! The calibration result as the world sees it: the JSON document (wire types, versioned by the
+//! `schema` field) and the plain-text summary table.
+//!
+//! Core types do not derive Serialize; this module owns the wire shape and converts, once, from
+//! SI to the trade's units (pN/nm, nm/V, pN s/nm, um, mPa s). The CLI's `--json` output, the
+//! service's stored result and its responses all use `CalibrationReport` unchanged.
+
+mod summary;
+#[cfg(test)]
+mod tests;
+
+pub use summary::summary_table;
+
+use crate::calibration::{AnalysisOptions, AxisCalibration, Calibration, Estimate, RunConditions};
+use crate::drag::AxisOrientation;
+use crate::equipartition::Detrend;
+use crate::recording::{PositionUnit, Recording};
+use crate::spectrum::FilterSetting;
+use serde::{Deserialize, Serialize};
+
+/// Version of the JSON shape; bumped only for incompatible changes.
+pub const SCHEMA: &str = "trapwise.calibration/1";
+
+/// A value with its standard error, in the unit its field name states.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ValueSe {
+    pub value: f64,
+    pub se: f64,
+}
+
+impl From<Estimate> for ValueSe {
+    fn from(e: Estimate) -> Self {
+        ValueSe {
+            value: e.value,
+            se: e.se,
+        }
+    }
+}
+
+fn scaled(e: Estimate, factor: f64) -> ValueSe {
+    ValueSe {
+        value: e.value * factor,
+        se: e.se * factor,
+    }
+}
+
+/// The whole result of calibrating one recording.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct CalibrationReport {
+    pub schema: String,
+    pub software: Software,
+    pub input: InputInfo,
+    pub conditions: ConditionsInfo,
+    pub options: OptionsInfo,
+    /// kB T, pN nm.
+    pub thermal_energy_pn_nm: f64,
+    /// Bulk Stokes drag 6 pi eta R (no wall correction), pN s/nm; each axis carries its own
+    /// wall-corrected drag.
+    pub drag_pn_s_per_nm: ValueSe,
+    pub axes: Vec<AxisReport>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Software {
+    pub name: String,
+    pub version: String,
+}
+
+/// What was read.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct InputInfo {
+    pub file_name: String,
+    /// SHA-256 of the file's bytes, lower-case hex.
+    pub sha256: String,
+    pub format: String,
+    pub n_samples: usize,
+    pub sample_rate_hz: f64,
+    pub duration_s: f64,
+    /// `nm` or `V`.
+    pub unit: String,
+    pub axes: Vec<String>,
+}
+
+/// The run conditions used, echoed in the trade's units.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ConditionsInfo {
+    pub bead_diameter_um: f64,
+    pub bead_diameter_se_um: f64,
+    pub temperature_c: f64,
+    pub temperature_se_c: f64,
+    pub viscosity_mpa_s: f64,
+    /// `water-iapws-2008` (computed from the temperature) or `given`.
+    pub viscosity_source: String,
+    pub height_um: Option<f64>,
+    pub height_se_um: f64,
+    pub bead_density_kg_per_m3: f64,
+}
+
+/// The analysis options used.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct OptionsInfo {
+    pub windows: usize,
+    /// `none`, `fixed` or `fitted`.
+    pub detector_filter: String,
+    pub hydrodynamics: bool,
+    /// `mean` or `linear`.
+    pub detrend: String,
+    pub exclude_peaks: bool,
+    pub target_relative_precision: f64,
+    pub axial_axes: Vec<String>,
+}
+
+/// The calibration of one axis.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct AxisReport {
+    pub axis: String,
+    /// `lateral` or `axial`.
+    pub orientation: String,
+    /// gamma / gamma0 from the wall correction (1 in bulk).
+    pub wall_factor: f64,
+    pub drag_pn_s_per_nm: ValueSe,
+    pub corner_frequency_hz: ValueSe,
+    pub relaxation_time_s: ValueSe,
+    /// Fitted diffusion coefficient in `diffusion_unit` (one-sided spectrum convention).
+    pub diffusion: ValueSe,
+    /// `nm^2/s` or `V^2/s`.
+    pub diffusion_unit: String,
+    /// Einstein's kB T / gamma, nm^2/s.
+    pub diffusion_theory_nm2_per_s: f64,
+    pub stiffness_pn_per_nm: StiffnessReport,
+    /// Displacement sensitivity, nm/V; null for nanometre data.
+    pub sensitivity_nm_per_v: Option<ValueSe>,
+    /// `consistent` or `inconsistent`.
+    pub verdict: String,
+    pub verdict_reasons: Vec<String>,
+    pub discrepancies: Vec<DiscrepancyReport>,
+    pub findings: Vec<FindingReport>,
+    /// Whether the standard errors include the run conditions' uncertainties.
+    pub errors_include_conditions: bool,
+    pub spectrum_fit: SpectrumFitReport,
+    pub autocorrelation_fit: AcfFitReport,
+    pub equipartition: EquipartitionReport,
+    /// Arrays for plotting; omitted where a caller asked for the summary only.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub plots: Option<Plots>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct StiffnessReport {
+    pub psd: ValueSe,
+    pub acf: ValueSe,
+    pub equipartition: ValueSe,
+    pub consensus: ValueSe,
+    /// False for volt data: equipartition then uses beta from the spectral fit and is left out
+    /// of the consensus.
+    pub equipartition_independent: bool,
+    pub consensus_weights: MethodTriple,
+    /// Correlation matrix of (psd, acf, equipartition).
+    pub correlation: [[f64; 3]; 3],
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct MethodTriple {
+    pub psd: f64,
+    pub acf: f64,
+    pub equipartition: f64,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct DiscrepancyReport {
+    pub first: String,
+    pub second: String,
+    pub difference_pn_per_nm: f64,
+    pub difference_se_pn_per_nm: f64,
+    /// difference / its standard error.
+    pub z: f64,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct FindingReport {
+    pub code: String,
+    /// `info`, `warning` or `error`.
+    pub severity: String,
+    pub message: String,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct SpectrumFitReport {
+    pub fit_min_hz: f64,
+    pub fit_max_hz: f64,
+    pub chi_square: f64,
+    pub degrees_of_freedom: usize,
+    pub p_value: f64,
+    pub correlation_fc_diffusion: f64,
+    pub blocks: usize,
+    pub iterations: usize,
+    pub resolution_hz: f64,
+    pub detector_filter: Option<FilterReport>,
+    pub excluded_peaks: Vec<PeakReport>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct FilterReport {
+    pub f3db_hz: ValueSe,
+    pub alpha: ValueSe,
+    /// True when fitted, false when given.
+    pub fitted: bool,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct PeakReport {
+    pub frequency_hz: f64,
+    pub peak_ratio: f64,
+    /// Mean square of the interference, in the signal unit squared.
+    pub excess_power: f64,
+    pub mains_hz: Option<f64>,
+    pub harmonic: Option<u32>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct AcfFitReport {
+    pub first_lag: usize,
+    pub last_lag: usize,
+    pub lags_used: usize,
+    pub chi_square: f64,
+    pub degrees_of_freedom: usize,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct EquipartitionReport {
+    /// Variance in `variance_unit`.
+    pub variance: ValueSe,
+    /// `nm^2` or `V^2`.
+    pub variance_unit: String,
+    pub mean: f64,
+    pub slope_per_s: f64,
+    pub detrend: String,
+}
+
+/// Arrays for plotting.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Plots {
+    pub spectrum: SpectrumPlot,
+    pub autocorrelation: AcfPlot,
+    pub histogram: HistogramPlot,
+}
+
+/// The blocked one-sided spectrum and the fitted model at the same frequencies; residual =
+/// (data - model) / (model / sqrt(n_averaged)), in standard errors.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct SpectrumPlot {
+    pub frequency_hz: Vec<f64>,
+    /// Unit^2/Hz.
+    pub psd: Vec<f64>,
+    pub model: Vec<f64>,
+    pub n_averaged: Vec<usize>,
+    pub residual: Vec<f64>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct AcfPlot {
+    pub lag_s: Vec<f64>,
+    /// Unit^2.
+    pub autocovariance: Vec<f64>,
+    pub model: Vec<f64>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct HistogramPlot {
+    /// Bin centres relative to the mean, signal unit.
+    pub centre: Vec<f64>,
+    pub bin_width: f64,
+    pub count: Vec<u64>,
+    /// Counts expected from the Gaussian of equipartition.
+    pub expected: Vec<f64>,
+}
+
+/// Facts about the input that only the caller knows.
+#[derive(Clone, Debug, PartialEq)]
+pub struct InputFacts {
+    pub file_name: String,
+    pub sha256: String,
+    pub format: String,
+}
+
+fn orientation_name(o: AxisOrientation) -> &'static str {
+    match o {
+        AxisOrientation::Lateral => "lateral",
+        AxisOrientation::Axial => "axial",
+    }
+}
+
+/// SHA-256 of bytes as lower-case hex.
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    use sha2::Digest;
+    format!("{:x}", sha2::Sha256::digest(bytes))
+}
+
+/// Builds the wire report. `with_plots` adds the plotting arrays.
+pub fn build(
+    calibration: &Calibration,
+    recording: &Recording,
+    facts: &InputFacts,
+    conditions: &RunConditions,
+    options: &AnalysisOptions,
+    with_plots: bool,
+) -> CalibrationReport {
+    let phys = &calibration.physics;
+    CalibrationReport {
+        schema: SCHEMA.to_string(),
+        software: Software {
+            name: "trapwise".into(),
+            version: env!("CARGO_PKG_VERSION").into(),
+        },
+        input: InputInfo {
+            file_name: facts.file_name.clone(),
+            sha256: facts.sha256.clone(),
+            format: facts.format.clone(),
+            n_samples: recording.n_samples(),
+            sample_rate_hz: recording.sample_rate_hz,
+            duration_s: recording.duration_s(),
+            unit: recording.unit.suffix().into(),
+            axes: recording.axes.iter().map(|a| a.name.clone()).collect(),
+        },
+        conditions: ConditionsInfo {
+            bead_diameter_um: conditions.bead_diameter_m * 1e6,
+            bead_diameter_se_um: conditions.bead_diameter_se_m * 1e6,
+            temperature_c: conditions.temperature_c,
+            temperature_se_c: conditions.temperature_se_c,
+            viscosity_mpa_s: phys.viscosity_pa_s * 1e3,
+            viscosity_source: if phys.viscosity_from_water {
+                "water-iapws-2008".into()
+            } else {
+                "given".into()
+            },
+            height_um: conditions.height_m.map(|h| h * 1e6),
+            height_se_um: conditions.height_se_m * 1e6,
+            bead_density_kg_per_m3: conditions.bead_density_kg_per_m3,
+        },
+        options: OptionsInfo {
+            windows: options.n_windows,
+            detector_filter: match options.filter {
+                FilterSetting::None => "none",
+                FilterSetting::Fixed(_) => "fixed",
+                FilterSetting::Fitted(_) => "fitted",
+            }
+            .into(),
+            hydrodynamics: options.hydrodynamics,
+            detrend: match options.detrend {
+                Detrend::Mean => "mean",
+                Detrend::Linear => "linear",
+            }
+            .into(),
+            exclude_peaks: options.exclude_peaks,
+            target_relative_precision: options.target_relative_precision,
+            axial_axes: options.axial_axes.clone(),
+        },
+        thermal_energy_pn_nm: phys.thermal_energy_j * 1e21,
+        drag_pn_s_per_nm: scaled(phys.stokes_drag_kg_per_s, 1e3),
+        axes: calibration
+            .axes
+            .iter()
+            .map(|a| axis_report(a, recording.unit, options, with_plots))
+            .collect(),
+    }
+}
+
+fn axis_report(
+    a: &AxisCalibration,
+    unit: PositionUnit,
+    options: &AnalysisOptions,
+    with_plots: bool,
+) -> AxisReport {
+    let s = &a.stiffness_pn_per_nm;
+    let u = unit.suffix();
+    let fit = &a.spectrum;
+    let detector_filter = match (options.filter, fit.fitted_filter) {
+        (FilterSetting::Fitted(_), Some(f)) => Some(FilterReport {
+            f3db_hz: ValueSe {
+                value: f.f3db_hz,
+                se: f.f3db_se_hz,
+            },
+            alpha: ValueSe {
+                value: f.alpha,
+                se: f.alpha_se,
+            },
+            fitted: true,
+        }),
+        (FilterSetting::Fixed(f), _) => Some(FilterReport {
+            f3db_hz: ValueSe {
+                value: f.f3db_hz,
+                se: 0.0,
+            },
+            alpha: ValueSe {
+                value: f.alpha,
+                se: 0.0,
+            },
+            fitted: false,
+        }),
+        _ => None,
+    };
+    let plots = with_plots.then(|| plots(a));
+    AxisReport {
+        axis: a.axis.clone(),
+        orientation: orientation_name(a.orientation).into(),
+        wall_factor: a.wall_factor,
+        drag_pn_s_per_nm: scaled(a.drag_kg_per_s, 1e3),
+        corner_frequency_hz: a.corner_frequency_hz.into(),
+        relaxation_time_s: a.relaxation_time_s.into(),
+        diffusion: a.diffusion.into(),
+        diffusion_unit: format!("{u}^2/s"),
+        diffusion_theory_nm2_per_s: a.diffusion_theory_m2_per_s * 1e18,
+        stiffness_pn_per_nm: StiffnessReport {
+            psd: s.psd.into(),
+            acf: s.acf.into(),
+            equipartition: s.equipartition.into(),
+            consensus: s.consensus.into(),
+            equipartition_independent: s.equipartition_independent,
+            consensus_weights: MethodTriple {
+                psd: s.consensus_weights[0],
+                acf: s.consensus_weights[1],
+                equipartition: s.consensus_weights[2],
+            },
+            correlation: s.correlation,
+        },
+        sensitivity_nm_per_v: a.sensitivity_nm_per_v.map(ValueSe::from),
+        verdict: a.verdict.name().into(),
+        verdict_reasons: a.verdict_reasons.clone(),
+        discrepancies: a
+            .discrepancies
+            .iter()
+            .map(|d| DiscrepancyReport {
+                first: d.first.into(),
+                second: d.second.into(),
+                difference_pn_per_nm: d.difference,
+                difference_se_pn_per_nm: d.difference_se,
+                z: d.z,
+            })
+            .collect(),
+        findings: a
+            .findings
+            .iter()
+            .map(|f| FindingReport {
+                code: f.code.into(),
+                severity: f.severity.name().into(),
+                message: f.message.clone(),
+            })
+            .collect(),
+        errors_include_conditions: a.includes_input_errors,
+        spectrum_fit: SpectrumFitReport {
+            fit_min_hz: fit.f_min_hz,
+            fit_max_hz: fit.f_max_hz,
+            chi_square: fit.chi_square,
+            degrees_of_freedom: fit.degrees_of_freedom,
+            p_value: fit.p_value,
+            correlation_fc_diffusion: fit.correlation_fc_diffusion,
+            blocks: fit.blocks.len(),
+            iterations: fit.iterations,
+            resolution_hz: a.resolution_hz,
+            detector_filter,
+            excluded_peaks: a
+                .peaks
+                .iter()
+                .map(|p| PeakReport {
+                    frequency_hz: p.frequency_hz,
+                    peak_ratio: p.peak_ratio,
+                    excess_power: p.excess_power,
+                    mains_hz: p.mains.map(|m| m.0),
+                    harmonic: p.mains.map(|m| m.1),
+                })
+                .collect(),
+        },
+        autocorrelation_fit: AcfFitReport {
+            first_lag: a.acf.lags.first().copied().unwrap_or(0),
+            last_lag: a.acf.lags.last().copied().unwrap_or(0),
+            lags_used: a.acf.lags.len(),
+            chi_square: a.acf.chi_square,
+            degrees_of_freedom: a.acf.degrees_of_freedom,
+        },
+        equipartition: EquipartitionReport {
+            variance: ValueSe {
+                value: a.variance.variance,
+                se: a.variance.variance_se,
+            },
+            variance_unit: format!("{u}^2"),
+            mean: a.variance.mean,
+            slope_per_s: a.variance.slope_per_s,
+            detrend: match options.detrend {
+                Detrend::Mean => "mean",
+                Detrend::Linear => "linear",
+            }
+            .into(),
+        },
+        plots,
+    }
+}
+
+fn plots(a: &AxisCalibration) -> Plots {
+    let fit = &a.spectrum;
+    let residual = fit
+        .blocks
+        .iter()
+        .zip(&fit.model_psd)
+        .map(|(b, m)| (b.psd - m) / (m / (b.n_averaged as f64).sqrt()))
+        .collect();
+    Plots {
+        spectrum: SpectrumPlot {
+            frequency_hz: fit.blocks.iter().map(|b| b.frequency_hz).collect(),
+            psd: fit.blocks.iter().map(|b| b.psd).collect(),
+            model: fit.model_psd.clone(),
+            n_averaged: fit.blocks.iter().map(|b| b.n_averaged).collect(),
+            residual,
+        },
+        autocorrelation: AcfPlot {
+            lag_s: a
+                .acf
+                .lags
+                .iter()
+                .map(|&k| k as f64 / a.sample_rate_hz)
+                .collect(),
+            autocovariance: a.acf.acov.clone(),
+            model: a.acf.model.clone(),
+        },
+        histogram: HistogramPlot {
+            centre: a.histogram.centres.clone(),
+            bin_width: a.histogram.bin_width,
+            count: a.histogram.counts.clone(),
+            expected: a.histogram.expected.clone(),
+        },
+    }
+}
