@@ -615,6 +615,11 @@ fn header_errors() {
         &["line 2", "4 position columns", "at most 3"],
     );
     check(
+        "a_nm,b_nm,time_s,c_nm,d_nm,e_nm",
+        "too-many-columns",
+        &["line 2", "5 position columns"],
+    );
+    check(
         "time_s",
         "no-position-column",
         &["line 2", "add one to three"],
