@@ -1,6 +1,7 @@
 //! NumPy `.npy` array files, format versions 1.0 and 2.0.
 //!
-//! The layout follows NEP 1, "A Simple File Format for NumPy Arrays" (R. Kern, 2007), as also
+//! The layout follows NEP 1, "A Simple File Format for NumPy Arrays" (R. Kern, 2007; author and
+//! year from memory, unverified), as also
 //! documented in the `numpy.lib.format` module: the magic string `\x93NUMPY`, one byte each of
 //! major and minor version, the header length as a little-endian u16 (version 1.0) or u32
 //! (version 2.0), then the header, an ASCII Python dictionary literal with exactly the keys

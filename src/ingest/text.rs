@@ -399,10 +399,14 @@ fn parse_header(
                     });
                 }
                 if positions.len() == 3 {
+                    let is_time = |cell: &str| {
+                        let label = unquote(cell.trim());
+                        matches!(classify_label(file, line, 0, label), Ok(Role::Time(_)))
+                    };
                     return Err(IngestError::TooManyColumns {
                         file: file.to_string(),
                         line,
-                        found: 4,
+                        found: split_cells(text, sep).filter(|cell| !is_time(cell)).count(),
                     });
                 }
                 let column_unit = resolve_unit(file, line, column, label, header_unit, options)?;
@@ -662,6 +666,10 @@ fn scan_rows(
     sep: Sep,
     reference: &'static str,
 ) -> Result<Vec<Vec<f64>>, IngestError> {
+    if n_cols == 0 {
+        // Callers never ask for zero columns; returning keeps the row loop from spinning.
+        return Ok(Vec::new());
+    }
     let bytes = cursor.bytes;
     let mut pos = cursor.pos;
     let mut line = cursor.line;
