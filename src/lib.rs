@@ -7,13 +7,16 @@
 
 pub mod autocorrelation;
 pub mod calibration;
+pub mod cli;
 pub mod drag;
 pub mod equipartition;
 pub mod findings;
 pub mod ingest;
 mod linalg;
+pub mod pipeline;
 pub mod recording;
 pub mod report;
+pub mod settings;
 pub mod simulate;
 pub mod spectrum;
 pub mod water;

@@ -105,7 +105,10 @@ pub fn summary_table(r: &CalibrationReport) -> String {
     for row in &rows {
         let _ = writeln!(s, "{}", line(row));
     }
-    if r.axes.iter().any(|a| !a.stiffness_pn_per_nm.equipartition_independent) {
+    if r.axes
+        .iter()
+        .any(|a| !a.stiffness_pn_per_nm.equipartition_independent)
+    {
         let _ = writeln!(
             s,
             "* uses beta from the spectral fit, so it is not an independent check and stays out of the consensus"

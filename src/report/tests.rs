@@ -35,7 +35,14 @@ fn report(unit: PositionUnit) -> CalibrationReport {
 #[test]
 fn json_has_the_documented_top_level_and_axis_fields() {
     let v = serde_json::to_value(report(PositionUnit::Nanometre)).expect("serialises");
-    for key in ["drag_pn_s_per_nm", "axes", "input", "conditions", "software", "schema"] {
+    for key in [
+        "drag_pn_s_per_nm",
+        "axes",
+        "input",
+        "conditions",
+        "software",
+        "schema",
+    ] {
         assert!(v.get(key).is_some(), "missing {key}");
     }
     let axis = &v["axes"][0];
