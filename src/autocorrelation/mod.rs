@@ -87,7 +87,7 @@ pub enum AcfError {
     },
     /// The autocovariance does not decay from lag 0 to lag 1 as an exponential must.
     #[error(
-        "autocovariance does not decay: lag 1 holds {lag1} and lag 0 holds {lag0}, but an exponential decay needs 0 < acov[1] < acov[0]; the trace looks like white noise, oscillation or drift rather than trapped thermal motion"
+        "autocovariance does not decay: lag 1 holds {lag1} and lag 0 holds {lag0}, but an exponential decay needs 0 < acov[1] < acov[0]; the trace looks constant, white, oscillating or drifting rather than like trapped thermal motion"
     )]
     NotDecaying {
         /// The lag-0 value.

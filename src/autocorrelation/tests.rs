@@ -241,7 +241,7 @@ fn brute_autocovariance_covariance(c: f64, n: usize, k: usize, l: usize) -> f64 
     for j in 0..(n - k) as i64 {
         for i in 0..(n - l) as i64 {
             let d = i - j;
-            sum += g(d) * g(d + l_i - k_i) + g(d + l_i) * g(d - k_i);
+            sum += g(d).mul_add(g(d + l_i - k_i), g(d + l_i) * g(d - k_i));
         }
     }
     sum / ((n - k) * (n - l)) as f64
