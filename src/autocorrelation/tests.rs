@@ -402,6 +402,8 @@ fn check_fit_is_unbiased_and_honest(tau_over_dt: f64) {
     let mut amps = Vec::new();
     let mut amp_ses = Vec::new();
     let mut chi_per_dof = Vec::new();
+    let mut lag0s = Vec::new();
+    let mut predicted_covs = Vec::new();
     for seed in 0..n_seeds {
         let x = ar1(n_samples, c, sigma, 1000 + seed);
         let acov = autocovariance(&x, 400);
@@ -414,6 +416,15 @@ fn check_fit_is_unbiased_and_honest(tau_over_dt: f64) {
         amps.push(fit.amplitude);
         amp_ses.push(fit.amplitude_se);
         chi_per_dof.push(fit.chi_square / fit.degrees_of_freedom as f64);
+        lag0s.push(acov[0]);
+        predicted_covs.push(
+            fit.tau_influence
+                .iter()
+                .map(|&(lag, w)| {
+                    w * autocovariance_covariance_ar1(sigma * sigma, c, lag, 0, n_samples)
+                })
+                .sum::<f64>(),
+        );
     }
     let (tau_mean, tau_sd) = mean_and_sd(&taus);
     let (tau_se_mean, _) = mean_and_sd(&tau_ses);
@@ -441,6 +452,27 @@ fn check_fit_is_unbiased_and_honest(tau_over_dt: f64) {
     // The generalised chi-square has mean K - 2 if the Bartlett weights are right; its average per
     // degree of freedom over 60 records scatters by well under 0.1 (chi-square distribution).
     let (chi_mean, _) = mean_and_sd(&chi_per_dof);
+    // Cross-covariance of tau_hat with the variance acov[0], predicted from tau_influence and the
+    // covariance of the sample autocovariances, against the empirical correlation over seeds.
+    // Compared in Fisher's z = atanh(r), whose standard error is 1/sqrt(n - 3) (R. A. Fisher,
+    // Metron 1, 3 (1921); reference from memory, unverified); 3.5 standard errors allowed.
+    let (lag0_mean, lag0_sd) = mean_and_sd(&lag0s);
+    let empirical_cov = taus
+        .iter()
+        .zip(&lag0s)
+        .map(|(t, v)| (t - tau_mean) * (v - lag0_mean))
+        .sum::<f64>()
+        / (n_seeds as f64 - 1.0);
+    let (predicted_cov, _) = mean_and_sd(&predicted_covs);
+    let lag0_sd_predicted = autocovariance_covariance_ar1(sigma * sigma, c, 0, 0, n_samples).sqrt();
+    let rho_predicted = predicted_cov / (tau_se_mean * lag0_sd_predicted);
+    let rho_empirical = empirical_cov / (tau_sd * lag0_sd);
+    let z_distance =
+        (rho_empirical.atanh() - rho_predicted.atanh()) * (n_seeds as f64 - 3.0).sqrt();
+    assert!(
+        z_distance.abs() < 3.5,
+        "correlation of tau and variance: predicted {rho_predicted}, seen {rho_empirical}"
+    );
     assert!(
         (chi_mean - 1.0).abs() < 0.2,
         "chi square per dof {chi_mean}"
