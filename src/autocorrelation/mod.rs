@@ -163,7 +163,8 @@ pub struct ExponentialFit {
     pub chi_square: f64,
     /// Degrees of freedom of `chi_square`: number of lags minus 2.
     pub degrees_of_freedom: usize,
-    /// Linearised influence of the data on tau: tau_hat - tau ~= sum_i weight_i (acov_i - E acov_i),
+    /// Linearised influence of the data on tau:
+    /// `tau_hat - tau ~= sum_i weight_i (acov_i - E acov_i)`,
     /// as (lag, weight in s per signal-unit^2). Used by the calibration module to compute the
     /// correlation between this estimate and the spectral and variance estimates.
     pub tau_influence: Vec<(usize, f64)>,
@@ -177,8 +178,9 @@ pub struct ExponentialFit {
 ///
 /// Computed with a zero-padded real FFT by the Wiener-Khinchin theorem (the inverse transform of
 /// `|X_f|^2` is the circular autocorrelation; e.g. W. H. Press et al., Numerical Recipes, 3rd ed.
-/// (2007), section 13.2 (section number from memory, unverified)): the mean-removed data are padded with zeros to a 7-smooth length
-/// `>= N + max_lag`, so the circular correlation equals the linear one at the lags returned.
+/// (2007), section 13.2, section number from memory, unverified): the mean-removed data are padded
+/// with zeros to a 7-smooth length `>= N + max_lag`, so the circular correlation equals the linear
+/// one at the lags returned.
 ///
 /// `max_lag` is clamped to `N - 1`; the result has `min(max_lag, N - 1) + 1` values, and is empty
 /// for empty input. Non-finite samples give non-finite values, never a panic. Memory: two buffers
@@ -370,23 +372,24 @@ fn bartlett_lag_sum(d: usize, c: f64) -> f64 {
 
 /// Covariance `Cov(C^_k, C^_l)` of two sample autocovariances (as from [`autocovariance`]) of
 /// `n_samples` values of an AR(1) process with amplitude `amplitude` (`sigma^2`, signal units
-/// squared) and correlation `c`, in signal units to the fourth: Bartlett's formula (M. S. Bartlett, J. R. Stat. Soc. Suppl. 8,
-/// 27 (1946)) with the exact finite-record counts of products.
+/// squared) and correlation `c`, in signal units to the fourth: Bartlett's formula (M. S. Bartlett,
+/// J. R. Stat. Soc. Suppl. 8, 27 (1946)) with the exact finite-record counts of products.
 ///
-/// For Gaussian data, `Cov(T_k, T_l) = sum_d n(d) f(d)` for the lag sums `T_k = sum_j x_j x_(j+k)`,
-/// with `f(d) = g(d) g(d+l-k) + g(d+l) g(d-k)`, `g(d) = A c^|d|`, and `n(d)` the number of index
-/// pairs at offset `d`. For `k <= l` and `m = l - k`, `n(d) = (N - l) - rho(d)` with
-/// `rho(d) = max(d, 0) + max(-d-m, 0)`, so (derived here, and checked against the direct count sum
-/// in the tests)
+/// For Gaussian data, `Cov(T_k, T_l) = sum_d n(d) f(d)` for the lag sums `T_k = sum_j x_j x_(j+k)`
+/// (Isserlis' theorem), with `f(d) = g(d) g(d+l-k) + g(d+l) g(d-k)`, `g(d) = A c^|d|`, and `n(d)`
+/// the number of index pairs at offset `d`. For `k <= l` and `m = l - k`,
+/// `n(d) = (N - l) - rho(d)` with `rho(d) = max(d, 0) + max(-d-m, 0)`, so (derived here, and
+/// checked against the direct count sum in the tests)
 ///
 /// `(N-k)(N-l) Cov(C^_k, C^_l) / A^2 = (N - l) [S(m) + S(l+k)] - G`,
 /// `G = 2 c^m q/(1-q)^2 + 2 c^(l+k) [k(k-1)/2 + k/(1-q) + q/(1-q)^2]`, `q = c^2`,
 ///
-/// where `S` is [`bartlett_lag_sum`]. The asymptotic form `N Cov = S(l-k) + S(l+k)` differs only by
-/// `O(tau/N)` relative, but that error is far larger than the smallest eigenvalues of this nearly
-/// singular matrix and inflated the generalised chi-square by about 20% at `tau = 40 dt`,
-/// `N = 2^16` in our simulations. The counts clamp at `n(d) >= 0` is neglected (terms of order
-/// `c^(2(N-l))`). Mean removal changes the covariance only through `xbar^2`, at order
+/// where `S(d) = c^|d| (|d| + (1+c^2)/(1-c^2))` is Bartlett's lag sum in units of `A^2`. The
+/// asymptotic form `N Cov = S(l-k) + S(l+k)` differs only by `O(tau/N)` relative, but that error
+/// is far larger than the smallest eigenvalues of this nearly singular matrix: with it, the
+/// generalised chi-square came out about 20% too small (0.80 per degree of freedom at
+/// `tau = 40 dt`, `N = 2^16`, in our simulations). The clamp `n(d) >= 0` is neglected (terms of
+/// order `c^(2(N-l))`). Mean removal changes the covariance only through `xbar^2`, at order
 /// `(tau/N)^2` (derived to leading order).
 ///
 /// Meant for propagating errors, e.g. `Cov(tau_hat, C^_0) = sum_i w_i Cov(C^_(k_i), C^_0)` with the
@@ -481,8 +484,9 @@ const CONVERGENCE_TOLERANCE: f64 = 1e-10;
 /// (see [`autocovariance_covariance_ar1`]), evaluated at the current estimate. Gauss-Newton steps
 /// on `(A, c)` with step halving alternate with re-evaluating `W` until the relative changes fall
 /// below 1e-10 (iteratively reweighted GLS; e.g. P. McCullagh and J. A. Nelder, Generalized Linear
-/// Models, 2nd ed. (1989), ch. 9 on quasi-likelihood (chapter from memory, unverified)). The `K x K` system is solved by Cholesky; a
-/// relative ridge of 1e-12 (raised if Cholesky fails) guards the near-singular case `c -> 1`.
+/// Models, 2nd ed. (1989), ch. 9 on quasi-likelihood, chapter from memory, unverified). The
+/// `K x K` system is solved by Cholesky; a relative ridge of 1e-12 (raised if Cholesky fails)
+/// guards the near-singular case `c -> 1`.
 ///
 /// `tau = -dt/ln c` with `dt = 1/sample_rate_hz`. Standard errors come from `(J^T W J)^-1`, for tau
 /// by the delta method with `dtau/dc = dt/(c ln^2 c)`. `tau_influence` is the tau row of

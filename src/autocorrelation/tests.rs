@@ -70,7 +70,8 @@ fn check_hand_case(samples: &[f64], max_lag: usize, expected: &[f64]) {
 fn autocovariance_matches_hand_computed_small_cases() {
     // Worked by hand from the definition C_k = (1/(N-k)) sum (x_j - xbar)(x_{j+k} - xbar).
     check_hand_case(&[1.0, -1.0, 1.0, -1.0], 3, &[1.0, -1.0, 1.0, -1.0]);
-    // Mean 2.5, deviations (-1.5, -0.5, 0.5, 1.5): C_0 = 5/4, C_1 = 1.25/3, C_2 = -1.5/2, C_3 = -2.25.
+    // Mean 2.5, deviations (-1.5, -0.5, 0.5, 1.5):
+    // C_0 = 5/4, C_1 = 1.25/3, C_2 = -1.5/2, C_3 = -2.25.
     check_hand_case(&[1.0, 2.0, 3.0, 4.0], 3, &[1.25, 1.25 / 3.0, -0.75, -2.25]);
     // max_lag beyond the record is clamped to N - 1.
     check_hand_case(&[3.0, 5.0], 10, &[1.0, -1.0]);

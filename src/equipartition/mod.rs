@@ -160,11 +160,12 @@ pub struct VarianceEstimate {
 ///
 /// **Standard error.** `Var(s^2) ~= (2/N) sum_{|k|<K} C_k^2`, the Gaussian-process result (M. S.
 /// Bartlett, J. R. Stat. Soc. Suppl. 8, 27 (1946); M. B. Priestley, Spectral Analysis and Time
-/// Series (1981), ch. 5 (chapter from memory, unverified)), with `C_k = acov[k]` truncated at `K`, the first lag `k >= 1` where
-/// `acov[k] <= 0` (first zero crossing, common practice: beyond it the sample autocovariance is
-/// noise), or the number of lags given if it never crosses zero. It is divided by the same factor
-/// `1 - v - q/N` as the variance. This needs no AR(1) assumption, so white detection noise and
-/// filtering are accounted for; pass enough lags (several relaxation times).
+/// Series (1981), ch. 5, chapter from memory, unverified), with `C_k = acov[k]` truncated at `K`,
+/// the first lag `k >= 1` where `acov[k] <= 0` (first zero crossing, common practice: beyond it the
+/// sample autocovariance is noise), or the number of lags given if it never crosses zero. It is
+/// divided by the same factor `1 - v - q/N` as the variance. This needs no AR(1) assumption, so
+/// white detection noise and filtering are accounted for; pass enough lags (several relaxation
+/// times).
 ///
 /// `acov` is the autocovariance of the detrended samples, lags `0..` as returned by
 /// `autocorrelation::autocovariance(&detrended(samples, detrend), max_lag)` (for `Mean` that is
