@@ -622,7 +622,7 @@ fn fit_returns_finite_results_or_errors_on_arbitrary_input() {
         let len = rng.random_range(0..40_usize);
         let decay: f64 = rng.random_range(-1.2..1.2);
         let mut acov: Vec<f64> = (0..len)
-            .map(|k| decay.powi(k as i32) + 0.3 * rng.random_range(-1.0..1.0))
+            .map(|k| 0.3f64.mul_add(rng.random_range(-1.0..1.0), decay.powi(k as i32)))
             .collect();
         if case % 5 == 0 && len > 0 {
             let at = rng.random_range(0..len);
