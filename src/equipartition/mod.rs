@@ -23,7 +23,7 @@ pub enum EquipartitionError {
     },
     /// Too few samples for the chosen detrending.
     #[error(
-        "{n_samples} samples are too few for {detrend} detrending, which needs at least {needed}; record longer"
+        "too few samples: {n_samples} given, but {detrend} detrending needs at least {needed}; record longer"
     )]
     TooFewSamples {
         /// Number of samples given.
@@ -78,6 +78,19 @@ pub enum EquipartitionError {
         lag0: f64,
         /// The lag-1 value.
         lag1: f64,
+    },
+    /// The autocovariance at lag 0 differs from the variance of the detrended samples, so it was
+    /// not computed from them.
+    #[error(
+        "the autocovariance does not belong to these samples: acov[0] = {lag0} but the variance after {detrend} detrending is {raw}; pass autocovariance(&detrended(samples, detrend), max_lag)"
+    )]
+    AutocovarianceMismatch {
+        /// The lag-0 value given.
+        lag0: f64,
+        /// The raw variance of the detrended samples.
+        raw: f64,
+        /// The detrending used (`mean` or `linear`).
+        detrend: &'static str,
     },
     /// The bias correction is undefined because nearly all variance is taken by the detrending.
     #[error(
@@ -147,20 +160,21 @@ pub struct VarianceEstimate {
 ///
 /// **Standard error.** `Var(s^2) ~= (2/N) sum_{|k|<K} C_k^2`, the Gaussian-process result (M. S.
 /// Bartlett, J. R. Stat. Soc. Suppl. 8, 27 (1946); M. B. Priestley, Spectral Analysis and Time
-/// Series (1981), section 5.3), with `C_k = acov[k]` truncated at `K`, the first lag `k >= 1` where
-/// `acov[k] <= 0` (first zero crossing, common practice: beyond it the sample autocovariance is
-/// noise), or the number of lags given if it never crosses zero. It is divided by the same factor
-/// `1 - v - q/N` as the variance. This needs no AR(1) assumption, so white detection noise and
-/// filtering are accounted for; pass enough lags (several relaxation times).
+/// Series (1981), ch. 5, chapter from memory, unverified), with `C_k = acov[k]` truncated at `K`,
+/// the first lag `k >= 1` where `acov[k] <= 0` (first zero crossing, common practice: beyond it the
+/// sample autocovariance is noise), or the number of lags given if it never crosses zero. It is
+/// divided by the same factor `1 - v - q/N` as the variance. This needs no AR(1) assumption, so
+/// white detection noise and filtering are accounted for; pass enough lags (several relaxation
+/// times).
 ///
-/// `acov` is the autocovariance of the same samples, lags `0..` as returned by
-/// `autocorrelation::autocovariance`; with strong drift and `Linear`, pass that of the detrended
-/// samples.
+/// `acov` is the autocovariance of the detrended samples, lags `0..` as returned by
+/// `autocorrelation::autocovariance(&detrended(samples, detrend), max_lag)` (for `Mean` that is
+/// the autocovariance of the samples themselves); `acov[0]` must equal the raw variance to 1e-6.
 ///
 /// # Errors
 /// See [`EquipartitionError`]: invalid rate, too few (fewer than 2, or 3 for `Linear`) or
-/// non-finite samples, zero variance, a short, non-finite or non-decaying autocovariance, or an
-/// undefined correction.
+/// non-finite samples, zero variance, a short, non-finite, non-decaying or mismatched
+/// autocovariance, or an undefined correction.
 pub fn variance(
     samples: &[f64],
     sample_rate_hz: f64,
@@ -187,6 +201,22 @@ pub fn variance(
     if let Some((index, &value)) = samples.iter().enumerate().find(|(_, x)| !x.is_finite()) {
         return Err(EquipartitionError::NonFiniteSample { index, value });
     }
+    let n = n_samples as f64;
+    let (mean, slope_per_sample) = fit_trend(samples, detrend);
+    let centre = (n - 1.0) / 2.0;
+    let raw = compensated_sum(samples.iter().enumerate().map(|(i, &x)| {
+        let residual = slope_per_sample.mul_add(-(i as f64 - centre), x - mean);
+        residual * residual
+    })) / n;
+    // Below the rounding level of the samples the variance is zero: the data are constant.
+    let scale = samples.iter().fold(0.0_f64, |m, x| m.max(x.abs()));
+    let rounding = 8.0 * f64::EPSILON * scale;
+    if raw <= rounding * rounding {
+        return Err(EquipartitionError::ZeroVariance {
+            detrend: detrend.name(),
+        });
+    }
+
     let (Some(&lag0), Some(&lag1)) = (acov.first(), acov.get(1)) else {
         return Err(EquipartitionError::AutocovarianceTooShort { n_lags: acov.len() });
     };
@@ -196,29 +226,12 @@ pub fn variance(
     if !(lag0 > 0.0 && lag1 < lag0) {
         return Err(EquipartitionError::NotDecaying { lag0, lag1 });
     }
-
-    let n = n_samples as f64;
-    let mean = compensated_sum(samples.iter().copied()) / n;
-    // Centred sample index i - (N-1)/2 and its sum of squares N(N^2-1)/12.
-    let centre = (n - 1.0) / 2.0;
-    let index_sum_squares = n * n.mul_add(n, -1.0) / 12.0;
-    let slope_per_sample = match detrend {
-        Detrend::Mean => 0.0,
-        Detrend::Linear => {
-            compensated_sum(
-                samples
-                    .iter()
-                    .enumerate()
-                    .map(|(i, &x)| (i as f64 - centre) * (x - mean)),
-            ) / index_sum_squares
-        }
-    };
-    let raw = compensated_sum(samples.iter().enumerate().map(|(i, &x)| {
-        let residual = slope_per_sample.mul_add(-(i as f64 - centre), x - mean);
-        residual * residual
-    })) / n;
-    if raw <= 0.0 {
-        return Err(EquipartitionError::ZeroVariance {
+    // Both are (1/N) sum r_i^2 of the same residuals, so they agree to rounding (the residuals have
+    // zero mean, so the autocovariance's own mean removal changes nothing).
+    if (lag0 - raw).abs() > 1e-6 * raw {
+        return Err(EquipartitionError::AutocovarianceMismatch {
+            lag0,
+            raw,
             detrend: detrend.name(),
         });
     }
@@ -257,6 +270,43 @@ pub fn variance(
         slope_per_s: slope_per_sample * sample_rate_hz,
         bias_correction: variance - raw,
     })
+}
+
+/// The residuals of the samples after removing their mean or their least-squares line, in signal
+/// units; compute the autocovariance passed to [`variance`] from these.
+///
+/// The line is fitted against the sample index (equivalently time); see [`variance`]. Non-finite
+/// samples give non-finite residuals; empty input gives an empty vector.
+pub fn detrended(samples: &[f64], detrend: Detrend) -> Vec<f64> {
+    let (mean, slope_per_sample) = fit_trend(samples, detrend);
+    let centre = (samples.len() as f64 - 1.0) / 2.0;
+    samples
+        .iter()
+        .enumerate()
+        .map(|(i, &x)| slope_per_sample.mul_add(-(i as f64 - centre), x - mean))
+        .collect()
+}
+
+/// Mean and least-squares slope per sample (0 for `Mean`) by ordinary least squares against the
+/// centred index `i - (N-1)/2`, whose sum of squares is `N(N^2-1)/12`.
+fn fit_trend(samples: &[f64], detrend: Detrend) -> (f64, f64) {
+    let n = samples.len() as f64;
+    if samples.is_empty() {
+        return (0.0, 0.0);
+    }
+    let mean = compensated_sum(samples.iter().copied()) / n;
+    let index_sum_squares = n * n.mul_add(n, -1.0) / 12.0;
+    if detrend == Detrend::Mean || index_sum_squares <= 0.0 {
+        return (mean, 0.0);
+    }
+    let centre = (n - 1.0) / 2.0;
+    let slope = compensated_sum(
+        samples
+            .iter()
+            .enumerate()
+            .map(|(i, &x)| (i as f64 - centre) * (x - mean)),
+    ) / index_sum_squares;
+    (mean, slope)
 }
 
 /// `q = u^T R u` for the unit vector `u` along the centred sample index and the AR(1) correlation
