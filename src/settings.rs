@@ -303,6 +303,30 @@ impl Settings {
             key: "temperature_c",
             hint: "give the sample temperature in degrees Celsius (e.g. 25)",
         })?;
+        let positive = |key: &str, v: Option<f64>| match v {
+            Some(x) if !(x > 0.0) => Err(bad(key, &x.to_string(), "expected a positive number")),
+            _ => Ok(()),
+        };
+        let non_negative = |key: &str, v: Option<f64>| match v {
+            Some(x) if !(x >= 0.0) => Err(bad(
+                key,
+                &x.to_string(),
+                "expected zero or a positive number",
+            )),
+            _ => Ok(()),
+        };
+        positive("bead_diameter_um", Some(diameter))?;
+        positive("viscosity_mpa_s", self.viscosity_mpa_s)?;
+        positive("height_um", self.height_um)?;
+        positive("bead_density_kg_per_m3", self.bead_density_kg_per_m3)?;
+        positive("volts_per_count", self.volts_per_count)?;
+        positive("time_tolerance", self.time_tolerance)?;
+        positive("precision_percent", self.precision_percent)?;
+        non_negative("bead_diameter_se_um", self.bead_diameter_se_um)?;
+        non_negative("temperature_se_c", self.temperature_se_c)?;
+        non_negative("height_se_um", self.height_se_um)?;
+        non_negative("fit_min_hz", self.fit_min_hz)?;
+        positive("fit_max_hz", self.fit_max_hz)?;
         let ingest = IngestOptions {
             format: self.format,
             sample_rate_hz: self.sample_rate_hz,

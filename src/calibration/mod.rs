@@ -140,23 +140,28 @@ pub enum CalibrationError {
     #[error("the recording holds no position axis")]
     NoAxes,
     /// The spectral fit failed on an axis.
-    #[error("axis `{axis}`: {source}")]
+    #[error("axis `{axis}`: {cause}")]
     Spectrum {
         axis: String,
-        source: SpectrumFitError,
+        cause: SpectrumFitError,
     },
     /// The record is too short for a periodogram.
     #[error("axis `{axis}`: {n_samples} samples are too few for a spectrum")]
     TooShort { axis: String, n_samples: usize },
     /// The autocorrelation fit failed on an axis.
-    #[error("axis `{axis}`: {source}")]
-    Autocorrelation { axis: String, source: AcfError },
+    #[error("axis `{axis}`: {cause}")]
+    Autocorrelation { axis: String, cause: AcfError },
     /// The variance could not be taken on an axis.
-    #[error("axis `{axis}`: {source}")]
+    #[error("axis `{axis}`: {cause}")]
     Equipartition {
         axis: String,
-        source: EquipartitionError,
+        cause: EquipartitionError,
     },
+    /// The axis never changes value.
+    #[error(
+        "axis `{axis}`: all {n_samples} samples have the same value; the detector saw no motion (check that the bead is trapped and the signal connected)"
+    )]
+    ConstantSignal { axis: String, n_samples: usize },
 }
 
 /// Quantities derived from the run conditions.
@@ -444,6 +449,25 @@ fn calibrate_axis(
     let kt = physics.thermal_energy_j;
     let d_theory = kt / gamma;
 
+    // With linear detrending all three methods work on the residuals of the line, so a drift
+    // leaks into none of them; the clipping check still looks at the raw samples.
+    let raw_samples = samples;
+    let detrended;
+    let samples: &[f64] = match options.detrend {
+        Detrend::Mean => samples,
+        Detrend::Linear => {
+            detrended = equipartition::detrended(samples, Detrend::Linear);
+            &detrended
+        }
+    };
+
+    if samples.iter().all(|&x| x == samples[0]) {
+        return Err(CalibrationError::ConstantSignal {
+            axis: name.to_string(),
+            n_samples: samples.len(),
+        });
+    }
+
     // --- spectrum -------------------------------------------------------------------------
     let periodogram = spectrum::periodogram(samples, sample_rate_hz, options.n_windows).ok_or(
         CalibrationError::TooShort {
@@ -478,7 +502,7 @@ fn calibrate_axis(
     let spectrum_fit = spectrum::fit_spectrum(&periodogram, &fit_options, None).map_err(|e| {
         CalibrationError::Spectrum {
             axis: name.to_string(),
-            source: e,
+            cause: e,
         }
     })?;
 
@@ -493,14 +517,14 @@ fn calibrate_axis(
         autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &options.acf)
             .map_err(|e| CalibrationError::Autocorrelation {
                 axis: name.to_string(),
-                source: e,
+                cause: e,
             })?;
 
     // --- equipartition --------------------------------------------------------------------
     let variance = equipartition::variance(samples, sample_rate_hz, options.detrend, &acov)
         .map_err(|e| CalibrationError::Equipartition {
             axis: name.to_string(),
-            source: e,
+            cause: e,
         })?;
 
     // --- covariance of the record's estimates ---------------------------------------------
@@ -620,7 +644,7 @@ fn calibrate_axis(
     let histogram = histogram(samples, variance.mean, variance.variance);
     let findings = findings::assess(&FindingInputs {
         axis: name,
-        samples,
+        samples: raw_samples,
         sample_rate_hz,
         unit,
         periodogram: &periodogram,

@@ -63,6 +63,10 @@ pub(super) fn run(args: &CalibrateArgs) -> Result<u8, Failure> {
         .run
         .settings()
         .map_err(|e| Failure::new(EXIT_BAD_INPUT, e))?;
+    // Check the settings before touching the file, so a typo is reported as such.
+    settings
+        .resolve()
+        .map_err(|e| Failure::new(EXIT_BAD_INPUT, e))?;
     let bytes = read_file(&args.file)?;
     let name = args
         .file

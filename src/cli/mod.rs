@@ -43,55 +43,55 @@ pub enum Command {
 #[derive(Debug, Clone, Args)]
 pub struct RunArgs {
     /// Bead diameter, micrometres.
-    #[arg(long, value_name = "UM")]
+    #[arg(long, value_name = "UM", allow_negative_numbers = true)]
     pub bead_diameter: f64,
     /// Standard error of the bead diameter, micrometres (from the bead supplier).
-    #[arg(long, value_name = "UM")]
+    #[arg(long, value_name = "UM", allow_negative_numbers = true)]
     pub bead_diameter_se: Option<f64>,
     /// Sample temperature, degrees Celsius.
     #[arg(long, value_name = "C", allow_negative_numbers = true)]
     pub temperature: f64,
     /// Standard error of the temperature, degrees Celsius.
-    #[arg(long, value_name = "C")]
+    #[arg(long, value_name = "C", allow_negative_numbers = true)]
     pub temperature_se: Option<f64>,
     /// Sampling rate, Hz (needed when the file has no time column).
-    #[arg(long, value_name = "HZ")]
+    #[arg(long, value_name = "HZ", allow_negative_numbers = true)]
     pub sample_rate: Option<f64>,
     /// Viscosity, mPa s (default: water at the given temperature, IAPWS 2008).
-    #[arg(long, value_name = "MPA_S")]
+    #[arg(long, value_name = "MPA_S", allow_negative_numbers = true)]
     pub viscosity: Option<f64>,
     /// Height of the bead centre above the surface, micrometres (enables the wall correction).
-    #[arg(long, value_name = "UM")]
+    #[arg(long, value_name = "UM", allow_negative_numbers = true)]
     pub height: Option<f64>,
     /// Standard error of the height, micrometres.
-    #[arg(long, value_name = "UM")]
+    #[arg(long, value_name = "UM", allow_negative_numbers = true)]
     pub height_se: Option<f64>,
     /// Bead density, kg/m^3 (only for --hydrodynamics; default polystyrene 1050).
-    #[arg(long, value_name = "KG_M3")]
+    #[arg(long, value_name = "KG_M3", allow_negative_numbers = true)]
     pub bead_density: Option<f64>,
     /// Unit of the samples when the header does not say: nm or V.
     #[arg(long, value_name = "nm|V")]
     pub units: Option<String>,
     /// File format instead of detection: csv, tsv, columns, raw-f32, raw-f64, raw-i16, npy.
-    #[arg(long, value_name = "FORMAT")]
+    #[arg(long, value_name = "FORMAT", allow_negative_numbers = true)]
     pub format: Option<String>,
     /// Interleaved channels in raw binary files.
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", allow_negative_numbers = true)]
     pub channels: Option<usize>,
     /// Volts per count for integer samples (raw-i16, integer npy).
-    #[arg(long, value_name = "V")]
+    #[arg(long, value_name = "V", allow_negative_numbers = true)]
     pub volts_per_count: Option<f64>,
     /// Lowest frequency in the spectral fit, Hz.
-    #[arg(long, value_name = "HZ")]
+    #[arg(long, value_name = "HZ", allow_negative_numbers = true)]
     pub fit_min: Option<f64>,
     /// Highest frequency in the spectral fit, Hz.
-    #[arg(long, value_name = "HZ")]
+    #[arg(long, value_name = "HZ", allow_negative_numbers = true)]
     pub fit_max: Option<f64>,
     /// Non-overlapping segments averaged in the periodogram.
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", allow_negative_numbers = true)]
     pub windows: Option<usize>,
     /// Detector filter: none, fit, fit:F3DB:ALPHA (starting values) or F3DB:ALPHA (fixed).
-    #[arg(long, value_name = "SPEC")]
+    #[arg(long, value_name = "SPEC", allow_negative_numbers = true)]
     pub detector_filter: Option<String>,
     /// Model frequency-dependent drag (matters for beads of 1 um and larger at kHz).
     #[arg(long)]
@@ -100,10 +100,10 @@ pub struct RunArgs {
     #[arg(long)]
     pub linear_detrend: bool,
     /// Comma-separated names of axes perpendicular to the surface (default z).
-    #[arg(long, value_name = "NAMES")]
+    #[arg(long, value_name = "NAMES", allow_negative_numbers = true)]
     pub axial_axes: Option<String>,
     /// Relative standard error of the stiffness you need, per cent (default 3).
-    #[arg(long, value_name = "PERCENT")]
+    #[arg(long, value_name = "PERCENT", allow_negative_numbers = true)]
     pub precision: Option<f64>,
 }
 

@@ -319,8 +319,8 @@ pub enum IngestError {
 
     /// A time step differs from the mean step by more than the relative tolerance.
     #[error(
-        "{file}: line {line}: time step {found_step_s} s differs from the mean step \
-         {expected_step_s} s by more than the relative tolerance {tolerance}; resample to a \
+        "{file}: line {line}: time step {found_step_s:.6e} s differs from the mean step \
+         {expected_step_s:.6e} s by more than the relative tolerance {tolerance}; resample to a \
          uniform rate or raise the time tolerance"
     )]
     TimeStepNotUniform {

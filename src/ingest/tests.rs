@@ -729,7 +729,7 @@ fn time_steps_not_uniform_report_line_and_steps() {
         "time-step-not-uniform",
         &[
             "line 702",
-            "time step 0.0234375 s",
+            "time step 2.343750e-2 s",
             "mean step",
             "tolerance 0.001",
         ],

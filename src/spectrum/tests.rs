@@ -420,3 +420,82 @@ fn narrow_peaks_find_mains_hum_and_nothing_in_clean_data() {
     assert!(mains.contains(&(50.0, 1)), "{peaks:?}");
     assert!(mains.contains(&(50.0, 3)), "{peaks:?}");
 }
+
+/// Reads a two-column CSV fixture (header line, then `frequency_hz,psd` rows).
+fn read_pairs(text: &str) -> Vec<(f64, f64)> {
+    text.lines()
+        .skip(1)
+        .filter(|l| !l.trim().is_empty())
+        .map(|l| {
+            let (a, b) = l.split_once(',').expect("two columns");
+            (a.parse().expect("number"), b.parse().expect("number"))
+        })
+        .collect()
+}
+
+fn fixture_signal() -> Vec<f64> {
+    include_str!("../../tests/data/spectrum/signal.csv")
+        .lines()
+        .skip(1)
+        .map(|l| l.trim().parse().expect("number"))
+        .collect()
+}
+
+#[track_caller]
+fn check_against_scipy(pg: &Periodogram, expected: &[(f64, f64)]) {
+    assert_eq!(pg.psd.len(), expected.len());
+    // Bin 0 differs by design: trapwise removes the record mean, scipy (detrend=False) does not.
+    for (k, (f, p)) in expected.iter().enumerate().skip(1) {
+        check_close(pg.frequency_hz(k), *f, 1e-12);
+        check_close(pg.psd[k], *p, 1e-9);
+    }
+}
+
+#[test]
+fn periodogram_matches_scipy_one_sided_density() {
+    // Fixture: scipy.signal.periodogram(x, fs=10000, window='boxcar', detrend=False,
+    // scaling='density'), written by tests/data/spectrum/make_periodogram_fixture.py
+    // (numpy 2.4.6, scipy 1.17.1).
+    let x = fixture_signal();
+    let pg = periodogram(&x, 10_000.0, 1).expect("long enough");
+    check_against_scipy(
+        &pg,
+        &read_pairs(include_str!("../../tests/data/spectrum/periodogram.csv")),
+    );
+}
+
+#[test]
+fn segment_average_matches_scipy_welch_with_boxcar_segments() {
+    // Fixture: scipy.signal.welch(x, fs=10000, window='boxcar', nperseg=1024, noverlap=0,
+    // detrend=False), from the same script.
+    let x = fixture_signal();
+    let pg = periodogram(&x, 10_000.0, 4).expect("long enough");
+    assert_eq!(pg.segment_len, 1024);
+    check_against_scipy(
+        &pg,
+        &read_pairs(include_str!("../../tests/data/spectrum/welch_4seg.csv")),
+    );
+}
+
+#[test]
+fn aliased_lorentzian_matches_numpy_direct_alias_sums() {
+    // Fixture: two-sided alias sums of D/(2 pi^2 (fc^2 + f^2)) computed with math.fsum over
+    // |n| <= 200000 plus closed-form tails, by tests/data/spectrum/make_aliased_fixture.py.
+    // Our one-sided value is twice the two-sided density.
+    let text = include_str!("../../tests/data/spectrum/aliased_lorentzian.csv");
+    let mut n = 0;
+    for line in text.lines().skip(1).filter(|l| !l.trim().is_empty()) {
+        let v: Vec<f64> = line
+            .split(',')
+            .map(|c| c.parse().expect("number"))
+            .collect();
+        let (fc, fs, f, d, two_sided) = (v[0], v[1], v[2], v[3], v[4]);
+        check_close(
+            aliased_lorentzian_one_sided(f, fc, d, fs),
+            2.0 * two_sided,
+            1e-12,
+        );
+        n += 1;
+    }
+    assert!(n >= 20, "fixture rows: {n}");
+}
