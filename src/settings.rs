@@ -348,7 +348,7 @@ impl Settings {
         analysis.fit_range.f_min_hz = self.fit_min_hz;
         analysis.fit_range.f_max_hz = self.fit_max_hz;
         if let Some(w) = self.windows {
-            analysis.n_windows = w;
+            analysis.n_windows = Some(w);
         }
         if let Some(f) = self.detector_filter {
             analysis.filter = f;

@@ -192,11 +192,28 @@ pub fn autocovariance(samples: &[f64], max_lag: usize) -> Vec<f64> {
     }
     let max_lag = max_lag.min(n_samples - 1);
     let mean = compensated_sum(samples.iter().copied()) / n_samples as f64;
+    // Block length: a power of two at least four times the largest lag (and 4096), so each
+    // block's transform is short, its plan cheap, and the lags fit in one block.
+    let block = (4 * max_lag.max(1)).next_power_of_two().max(4096);
+    let sums = if block >= n_samples {
+        whole_record_lag_sums(samples, mean, max_lag)
+    } else {
+        blocked_lag_sums(samples, mean, max_lag, block)
+    };
+    sums.into_iter()
+        .enumerate()
+        .map(|(lag, sum)| sum / (n_samples - lag) as f64)
+        .collect()
+}
+
+/// sum_j y_j y_{j+k} for k = 0..=max_lag, y = x - mean, by one zero-padded FFT of the whole
+/// record (short records).
+fn whole_record_lag_sums(samples: &[f64], mean: f64, max_lag: usize) -> Vec<f64> {
+    let n_samples = samples.len();
     let fft_len = fast_fft_len(n_samples.saturating_add(max_lag));
     let mut planner = RealFftPlanner::<f64>::new();
     let forward = planner.plan_fft_forward(fft_len);
     let inverse = planner.plan_fft_inverse(fft_len);
-
     let mut buffer = vec![0.0; fft_len];
     for (slot, &x) in buffer.iter_mut().zip(samples) {
         *slot = x - mean;
@@ -209,7 +226,7 @@ pub fn autocovariance(samples: &[f64], max_lag: usize) -> Vec<f64> {
         .is_err()
     {
         // Unreachable: the buffers are made by the plan itself.
-        return Vec::new();
+        return vec![f64::NAN; max_lag + 1];
     }
     for z in &mut spectrum {
         *z = Complex::new(z.norm_sqr(), 0.0);
@@ -219,12 +236,98 @@ pub fn autocovariance(samples: &[f64], max_lag: usize) -> Vec<f64> {
         .is_err()
     {
         // Unreachable: the spectrum is real by construction, so the DC and Nyquist bins are real.
-        return Vec::new();
+        return vec![f64::NAN; max_lag + 1];
     }
     buffer.truncate(max_lag + 1);
     // The unnormalised inverse FFT multiplies by the transform length.
-    for (lag, value) in buffer.iter_mut().enumerate() {
-        *value /= fft_len as f64 * (n_samples - lag) as f64;
+    for value in &mut buffer {
+        *value /= fft_len as f64;
+    }
+    buffer
+}
+
+/// The same lag sums for long records, block by block with O(block) memory.
+///
+/// Split y into blocks b of length B and let X_b be the length-2B transform of block b padded
+/// with B zeros. The pairs (j, j + k) with j in block b and k <= B all lie in blocks b and b + 1,
+/// and the length-2B transform of [block b, block b + 1] is X_b(m) + (-1)^m X_{b+1}(m) (a shift
+/// by half the transform length multiplies bin m by e^{-i pi m}). So
+/// sum_j y_j y_{j+k} = IFFT( sum_b conj(X_b) (X_b + (-1)^m X_{b+1}) )[k] for k <= B, with no
+/// wrap-around because j + k < 2B within each pair of blocks (derived here; the circular
+/// correlation theorem as in Press et al., Numerical Recipes, 3rd ed., sec. 13.2). Each block is
+/// transformed once and one inverse transform ends the sum: about as much arithmetic as two
+/// transforms of the whole record, with plans for length 2B only.
+fn blocked_lag_sums(samples: &[f64], mean: f64, max_lag: usize, block: usize) -> Vec<f64> {
+    let fft_len = 2 * block;
+    let mut planner = RealFftPlanner::<f64>::new();
+    let forward = planner.plan_fft_forward(fft_len);
+    let inverse = planner.plan_fft_inverse(fft_len);
+    let mut scratch =
+        vec![Complex::new(0.0, 0.0); forward.get_scratch_len().max(inverse.get_scratch_len())];
+    let mut buffer = vec![0.0; fft_len];
+    let mut current = forward.make_output_vec();
+    let mut next = forward.make_output_vec();
+    let mut acc = forward.make_output_vec();
+    let transform = |chunk: &[f64],
+                     buffer: &mut Vec<f64>,
+                     out: &mut Vec<Complex<f64>>,
+                     scratch: &mut Vec<Complex<f64>>|
+     -> bool {
+        buffer.iter_mut().for_each(|v| *v = 0.0);
+        for (slot, &x) in buffer.iter_mut().zip(chunk) {
+            *slot = x - mean;
+        }
+        forward.process_with_scratch(buffer, out, scratch).is_ok()
+    };
+    let mut chunks = samples.chunks(block);
+    let Some(first) = chunks.next() else {
+        return vec![0.0; max_lag + 1];
+    };
+    if !transform(first, &mut buffer, &mut current, &mut scratch) {
+        return vec![f64::NAN; max_lag + 1];
+    }
+    loop {
+        let has_next = match chunks.next() {
+            Some(chunk) => {
+                if !transform(chunk, &mut buffer, &mut next, &mut scratch) {
+                    return vec![f64::NAN; max_lag + 1];
+                }
+                true
+            }
+            None => false,
+        };
+        for (m, ((a, x), y)) in acc.iter_mut().zip(&current).zip(&next).enumerate() {
+            let y = if !has_next {
+                Complex::new(0.0, 0.0)
+            } else if m % 2 == 0 {
+                *y
+            } else {
+                -*y
+            };
+            *a += x.conj() * (*x + y);
+        }
+        if !has_next {
+            break;
+        }
+        std::mem::swap(&mut current, &mut next);
+    }
+    // The accumulated cross spectrum is not Hermitian-real at DC and Nyquist in general only
+    // through rounding; the real inverse transform needs those imaginary parts to be zero.
+    if let Some(first) = acc.first_mut() {
+        first.im = 0.0;
+    }
+    if let Some(last) = acc.last_mut() {
+        last.im = 0.0;
+    }
+    if inverse
+        .process_with_scratch(&mut acc, &mut buffer, &mut scratch)
+        .is_err()
+    {
+        return vec![f64::NAN; max_lag + 1];
+    }
+    buffer.truncate(max_lag + 1);
+    for value in &mut buffer {
+        *value /= fft_len as f64;
     }
     buffer
 }

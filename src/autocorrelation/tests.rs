@@ -649,3 +649,32 @@ fn fit_returns_finite_results_or_errors_on_arbitrary_input() {
     // Some arbitrary inputs are usable, so the success branch above is exercised too.
     assert!(n_ok > 0);
 }
+
+#[test]
+fn blocked_autocovariance_equals_the_direct_sum_on_long_records() {
+    // Records longer than a block take the blocked path; compare it with the obviously correct
+    // O(N L) double loop, including a record that is not a whole number of blocks.
+    let mut state = 0x2545_f491_4f6c_dd1du64;
+    let mut next = || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        (state >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+    };
+    for n in [20_000usize, 16_384, 9_001] {
+        let x: Vec<f64> = (0..n).map(|_| next() + 3.0).collect();
+        let max_lag = 150;
+        let fast = autocovariance(&x, max_lag);
+        let mean = x.iter().sum::<f64>() / n as f64;
+        for (k, value) in fast.iter().enumerate() {
+            let direct: f64 = (0..n - k)
+                .map(|j| (x[j] - mean) * (x[j + k] - mean))
+                .sum::<f64>()
+                / (n - k) as f64;
+            assert!(
+                (value - direct).abs() <= 1e-10 * fast[0],
+                "n {n} lag {k}: {value} vs {direct}"
+            );
+        }
+    }
+}

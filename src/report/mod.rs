@@ -99,7 +99,9 @@ pub struct ConditionsInfo {
 /// The analysis options used.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct OptionsInfo {
-    pub windows: usize,
+    /// Segments asked for; null when chosen automatically (the number used is in
+    /// `spectrum_fit.windows`).
+    pub windows: Option<usize>,
     /// `none`, `fixed` or `fitted`.
     pub detector_filter: String,
     pub hydrodynamics: bool,
@@ -195,6 +197,8 @@ pub struct SpectrumFitReport {
     pub blocks: usize,
     pub iterations: usize,
     pub resolution_hz: f64,
+    /// Periodogram segments averaged.
+    pub windows: usize,
     pub detector_filter: Option<FilterReport>,
     pub excluded_peaks: Vec<PeakReport>,
 }
@@ -457,6 +461,7 @@ fn axis_report(
             blocks: fit.blocks.len(),
             iterations: fit.iterations,
             resolution_hz: a.resolution_hz,
+            windows: a.n_windows,
             detector_filter,
             excluded_peaks: a
                 .peaks
