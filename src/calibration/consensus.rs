@@ -58,39 +58,84 @@ pub struct Combined {
 
 /// Best linear unbiased combination of correlated estimates (generalised least squares with the
 /// full covariance; Aitken, Proc. R. Soc. Edinburgh 55, 42 (1935) (citation from memory,
-/// unverified)): w = C^-1 1 / (1^T C^-1 1), variance 1 / (1^T C^-1 1). With positive
-/// correlations one weight can be negative; that is the correct optimum, not an error.
-/// Estimates with `include[i] == false` are left out (weight 0).
+/// unverified)): w = C^-1 1 / (1^T C^-1 1), variance 1 / (1^T C^-1 1).
+///
+/// Strongly correlated estimates with unequal errors can get a negative weight; the unconstrained
+/// optimum then extrapolates beyond the estimates, which is only right if every method is
+/// unbiased, and the verdict exists because sometimes one is not. So the weights are kept
+/// non-negative: a method whose weight comes out negative is dropped and the rest recombined
+/// (an active-set step; with three methods this finds the best convex combination), and the
+/// variance is w^T C w for the weights used (common practice for a combination that must stay
+/// within the range of its inputs). Estimates with `include[i] == false` are left out.
 pub fn combine(values: &[f64; 3], cov: &[[f64; 3]; 3], include: &[bool; 3]) -> Combined {
+    let mut active = *include;
+    loop {
+        let Some(weights) = blue_weights(cov, &active) else {
+            return best_single(values, cov, &active);
+        };
+        match (0..3).find(|&i| active[i] && weights[i] < 0.0) {
+            Some(i) => active[i] = false,
+            None => return finish(values, cov, include, weights),
+        }
+    }
+}
+
+/// Unconstrained BLUE weights over the active methods, or `None` for a singular covariance.
+fn blue_weights(cov: &[[f64; 3]; 3], active: &[bool; 3]) -> Option<[f64; 3]> {
+    let idx: Vec<usize> = (0..3).filter(|i| active[*i]).collect();
+    if idx.is_empty() {
+        return None;
+    }
+    let sub: Vec<Vec<f64>> = idx
+        .iter()
+        .map(|&i| idx.iter().map(|&j| cov[i][j]).collect())
+        .collect();
+    let cinv_one = solve_symmetric(&sub, &vec![1.0; idx.len()])?;
+    let total: f64 = cinv_one.iter().sum();
+    if !(total > 0.0) {
+        return None;
+    }
+    let mut w = [0.0; 3];
+    for (k, &i) in idx.iter().enumerate() {
+        w[i] = cinv_one[k] / total;
+    }
+    Some(w)
+}
+
+/// The single active estimate with the smallest variance (singular covariance).
+fn best_single(values: &[f64; 3], cov: &[[f64; 3]; 3], active: &[bool; 3]) -> Combined {
+    let best = (0..3)
+        .filter(|i| active[*i])
+        .min_by(|a, b| cov[*a][*a].total_cmp(&cov[*b][*b]))
+        .unwrap_or(0);
+    let mut weights = [0.0; 3];
+    weights[best] = 1.0;
+    Combined {
+        estimate: Estimate::new(values[best], cov[best][best].sqrt()),
+        weights,
+        chi_square: 0.0,
+        degrees_of_freedom: 0,
+        p_value: 1.0,
+    }
+}
+
+/// Value, variance w^T C w, and the chi-square of all included estimates about the value.
+fn finish(
+    values: &[f64; 3],
+    cov: &[[f64; 3]; 3],
+    include: &[bool; 3],
+    weights: [f64; 3],
+) -> Combined {
+    let value: f64 = (0..3).map(|i| weights[i] * values[i]).sum();
+    let variance: f64 = (0..3)
+        .flat_map(|i| (0..3).map(move |j| (i, j)))
+        .map(|(i, j)| weights[i] * weights[j] * cov[i][j])
+        .sum();
     let idx: Vec<usize> = (0..3).filter(|i| include[*i]).collect();
     let sub: Vec<Vec<f64>> = idx
         .iter()
         .map(|&i| idx.iter().map(|&j| cov[i][j]).collect())
         .collect();
-    let ones = vec![1.0; idx.len()];
-    let mut weights = [0.0; 3];
-    let Some(cinv_one) = solve_symmetric(&sub, &ones) else {
-        // Singular covariance (for instance identical estimates): fall back to the plain mean
-        // of the included estimates with the smallest reported variance.
-        let best = idx
-            .iter()
-            .copied()
-            .min_by(|a, b| cov[*a][*a].total_cmp(&cov[*b][*b]))
-            .unwrap_or(0);
-        weights[best] = 1.0;
-        return Combined {
-            estimate: Estimate::new(values[best], cov[best][best].sqrt()),
-            weights,
-            chi_square: 0.0,
-            degrees_of_freedom: 0,
-            p_value: 1.0,
-        };
-    };
-    let total: f64 = cinv_one.iter().sum();
-    for (k, &i) in idx.iter().enumerate() {
-        weights[i] = cinv_one[k] / total;
-    }
-    let value: f64 = (0..3).map(|i| weights[i] * values[i]).sum();
     let residuals: Vec<f64> = idx.iter().map(|&i| values[i] - value).collect();
     let chi_square = solve_symmetric(&sub, &residuals)
         .map(|x| x.iter().zip(&residuals).map(|(a, b)| a * b).sum())
@@ -104,7 +149,7 @@ pub fn combine(values: &[f64; 3], cov: &[[f64; 3]; 3], include: &[bool; 3]) -> C
         1.0
     };
     Combined {
-        estimate: Estimate::new(value, (1.0 / total).sqrt()),
+        estimate: Estimate::new(value, variance.max(0.0).sqrt()),
         weights,
         chi_square,
         degrees_of_freedom,

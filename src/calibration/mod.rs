@@ -19,8 +19,8 @@ use crate::equipartition::{self, Detrend, EquipartitionError, VarianceEstimate};
 use crate::findings::{self, Finding, FindingInputs};
 use crate::recording::{PositionUnit, Recording};
 use crate::spectrum::{
-    self, FilterSetting, FitRange, HydroTerms, NarrowPeak, SpectrumFit, SpectrumFitError,
-    SpectrumFitOptions, SpectrumModel,
+    self, FilterSetting, FitRange, HydroTerms, NarrowPeak, Periodogram, SpectrumFit,
+    SpectrumFitError, SpectrumFitOptions, SpectrumModel,
 };
 use crate::water::{self, BOLTZMANN_J_PER_K, WaterError, ZERO_CELSIUS_K};
 use std::f64::consts::PI;
@@ -114,7 +114,7 @@ impl Default for AnalysisOptions {
             hydrodynamics: false,
             detrend: Detrend::Mean,
             acf: AcfFitOptions::default(),
-            target_relative_precision: 0.03,
+            target_relative_precision: 0.05,
             exclude_peaks: true,
             axial_axes: vec!["z".to_string()],
         }
@@ -481,7 +481,11 @@ fn calibrate_axis(
             n_samples: samples.len(),
         },
     )?;
-    let peaks = spectrum::find_narrow_peaks(&periodogram, 0.01);
+    // Peaks below the fit range are drift, which has its own finding.
+    let peaks: Vec<NarrowPeak> = spectrum::find_narrow_peaks(&periodogram, 0.01)
+        .into_iter()
+        .filter(|p| p.frequency_hz >= fit_options_range_min(options, &periodogram))
+        .collect();
     let hydro = options.hydrodynamics.then(|| {
         let h = drag::hydrodynamic_frequencies(
             physics.viscosity_pa_s,
@@ -690,6 +694,19 @@ fn calibrate_axis(
         resolution_hz: periodogram.resolution_hz(),
         n_windows: periodogram.n_windows,
     })
+}
+
+/// The lower end of the spectral fit range these options give for this periodogram, Hz.
+fn fit_options_range_min(options: &AnalysisOptions, periodogram: &Periodogram) -> f64 {
+    let model = SpectrumModel {
+        sample_rate_hz: periodogram.sample_rate_hz,
+        aliasing: true,
+        filter: options.filter,
+        hydro: None,
+    };
+    let mut fit_options = SpectrumFitOptions::new(model);
+    fit_options.range = options.fit_range;
+    fit_options.resolved_range(periodogram).0
 }
 
 /// Segments of about 2^18 samples: long enough that the segment-end leakage of the periodogram

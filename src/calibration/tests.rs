@@ -296,3 +296,21 @@ fn invalid_conditions_are_errors_not_panics() {
     let err = calibrate(&rec, &low, &AnalysisOptions::default()).expect_err("bead in the wall");
     assert!(!err.to_string().is_empty());
 }
+
+#[test]
+fn consensus_never_leaves_the_range_of_its_estimates() {
+    // Strong correlation with unequal variances gives the unconstrained BLUE a negative weight
+    // (w_b is proportional to s_a^2 - rho s_a s_b < 0 here) and a value outside [a, b]; the constrained
+    // combination drops that method instead.
+    let values = [1.0, 1.5, 0.0];
+    let (sa, sb, rho) = (0.1f64, 0.3f64, 0.9f64);
+    let cov = [
+        [sa * sa, rho * sa * sb, 0.0],
+        [rho * sa * sb, sb * sb, 0.0],
+        [0.0, 0.0, 1.0],
+    ];
+    let c = consensus::combine(&values, &cov, &[true, true, false]);
+    assert_eq!(c.weights, [1.0, 0.0, 0.0]);
+    assert!((c.estimate.value - 1.0).abs() < 1e-12);
+    assert!((c.estimate.se - sa).abs() < 1e-12);
+}

@@ -102,7 +102,7 @@ pub struct RunArgs {
     /// Comma-separated names of axes perpendicular to the surface (default z).
     #[arg(long, value_name = "NAMES", allow_negative_numbers = true)]
     pub axial_axes: Option<String>,
-    /// Relative standard error of the stiffness you need, per cent (default 3).
+    /// Relative standard error of the stiffness you need, per cent (default 5).
     #[arg(long, value_name = "PERCENT", allow_negative_numbers = true)]
     pub precision: Option<f64>,
 }

@@ -1,0 +1,17 @@
+#!/usr/bin/env bash
+# Regenerates the demo recordings of the Saltmarsh Institute scenario (see README.md here) with
+# `trapwise simulate`. Deterministic: the same seeds give the same bytes.
+set -euo pipefail
+cd "$(dirname "$0")"
+tw=(cargo run --quiet --release --)
+# Instrument "osprey", trap A: high-speed camera tracking in nanometres, two lateral axes.
+"${tw[@]}" simulate -o osprey-trapA-camera.csv --axes x,y --stiffness 0.040,0.034 \
+  --bead-diameter 1.0 --temperature 24 --sample-rate 20000 --duration 1.5 --seed 11
+# Instrument "osprey", trap B: quadrant photodiode in volts, three axes, 500 nm/V.
+"${tw[@]}" simulate -o osprey-trapB-qpd.npy --units V --sensitivity 480 --axes x,y,z \
+  --stiffness 0.080,0.075,0.018 --bead-diameter 1.0 --temperature 24 --sample-rate 50000 \
+  --duration 1 --seed 12
+# Instrument "kittiwake", trap 1: photodiode with mains pickup and slow drift, raw f32 volts.
+"${tw[@]}" simulate -o kittiwake-trap1-pickup.f32 --units V --sensitivity 620 --stiffness 0.060 \
+  --bead-diameter 2.0 --temperature 22 --sample-rate 50000 --duration 1 --seed 13 \
+  --hum-amplitude 3 --hum-frequency 50 --drift 20
