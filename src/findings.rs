@@ -64,6 +64,9 @@ pub struct FindingInputs<'a> {
     pub height_m: Option<f64>,
     pub hydrodynamics: bool,
     pub relaxation_time_s: f64,
+    /// Lines fitted and subtracted from the record, and peaks left in (over the work budget).
+    pub lines_removed: usize,
+    pub lines_kept: usize,
 }
 
 /// Runs every check on one axis.
@@ -253,10 +256,11 @@ fn peaks(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
             "mains-pickup",
             Severity::Warning,
             format!(
-                "axis {}: narrow peaks at mains harmonics {}{}; they are left out of the spectral fit but add to the variance: check grounding and shielding",
+                "axis {}: narrow peaks at mains harmonics {}{}; {}: check grounding and shielding",
                 inp.axis,
                 mains.join(", "),
-                share_text
+                share_text,
+                inp.line_treatment()
             ),
         ));
     }
@@ -265,9 +269,10 @@ fn peaks(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
             "narrow-peaks",
             Severity::Warning,
             format!(
-                "axis {}: narrow spectral peaks at {} (mechanical resonance or pickup); they are left out of the spectral fit but add to the variance",
+                "axis {}: narrow spectral peaks at {} (mechanical resonance or pickup); {}",
                 inp.axis,
-                other.join(", ")
+                other.join(", "),
+                inp.line_treatment()
             ),
         ));
     }
@@ -383,6 +388,18 @@ fn geometry(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
 }
 
 impl FindingInputs<'_> {
+    /// How the peaks were handled, in words.
+    fn line_treatment(&self) -> String {
+        if self.lines_kept == 0 {
+            "they are left out of the spectral fit and subtracted from the record (fitted sinusoids) before the autocorrelation and equipartition methods".to_string()
+        } else {
+            format!(
+                "they are left out of the spectral fit; {} of them were subtracted from the record, {} stay in (the record is too long to fit them all) and add to the variance",
+                self.lines_removed, self.lines_kept
+            )
+        }
+    }
+
     /// The variance implied by the spectral fit, D / (2 pi fc), in signal units^2.
     fn stiffness_variance_hint(&self) -> Option<f64> {
         let v = self.spectrum.diffusion

@@ -240,6 +240,8 @@ pub struct AxisCalibration {
     pub resolution_hz: f64,
     /// Periodogram segments averaged.
     pub n_windows: usize,
+    /// Sinusoids fitted and subtracted before the autocorrelation and equipartition methods.
+    pub lines_removed: Vec<spectrum::SpectralLine>,
 }
 
 /// The calibration of a whole recording.
@@ -516,6 +518,16 @@ fn calibrate_axis(
         }
     })?;
 
+    // --- narrow lines ---------------------------------------------------------------------
+    // The spectral fit leaves the peaks' bins out; the time-domain methods need the lines
+    // themselves taken out of the record.
+    let (cleaned, lines_removed, lines_kept) =
+        remove_lines(samples, sample_rate_hz, &peaks, &periodogram);
+    // Removing a line can leave a trace of a trend; detrend again so the time-domain methods see
+    // exactly what they assume.
+    let cleaned = cleaned.map(|y| equipartition::detrended(&y, options.detrend));
+    let samples: &[f64] = cleaned.as_deref().unwrap_or(samples);
+
     // --- autocorrelation ------------------------------------------------------------------
     // Lags up to several relaxation times of the spectral estimate serve both the fit window
     // and the variance's standard error.
@@ -668,6 +680,8 @@ fn calibrate_axis(
         height_m: conditions.height_m,
         hydrodynamics: options.hydrodynamics,
         relaxation_time_s: tau,
+        lines_removed: lines_removed.len(),
+        lines_kept,
     });
     Ok(AxisCalibration {
         axis: name.to_string(),
@@ -693,6 +707,7 @@ fn calibrate_axis(
         sample_rate_hz,
         resolution_hz: periodogram.resolution_hz(),
         n_windows: periodogram.n_windows,
+        lines_removed,
     })
 }
 
@@ -716,6 +731,44 @@ fn fit_options_range_min(options: &AnalysisOptions, periodogram: &Periodogram) -
 /// Gamma statistics for the fit (common practice).
 pub fn default_windows(n_samples: usize) -> usize {
     ((n_samples as f64 / f64::from(1u32 << 18)).round() as usize).max(1)
+}
+
+/// Most lines removed from one axis.
+const MAX_LINES: usize = 10;
+/// Work budget of line removal in sample-evaluations (a line costs about (6 n_windows + 63) N);
+/// past it the lines stay in and a finding says so.
+const LINE_BUDGET: f64 = 6e8;
+
+/// Fits and subtracts the sinusoids behind the narrow peaks. Returns the cleaned samples (or
+/// `None` when there is nothing to remove), the lines removed, and how many peaks were left in.
+fn remove_lines(
+    samples: &[f64],
+    sample_rate_hz: f64,
+    peaks: &[NarrowPeak],
+    periodogram: &Periodogram,
+) -> (Option<Vec<f64>>, Vec<spectrum::SpectralLine>, usize) {
+    if peaks.is_empty() {
+        return (None, Vec::new(), 0);
+    }
+    let n = samples.len() as f64;
+    let per_line = 6.0f64.mul_add(periodogram.n_windows as f64, 63.0) * n;
+    let affordable = ((LINE_BUDGET / per_line).floor() as usize).min(MAX_LINES);
+    let mut strongest: Vec<&NarrowPeak> = peaks.iter().collect();
+    strongest.sort_by(|a, b| b.excess_power.total_cmp(&a.excess_power));
+    strongest.truncate(affordable);
+    if strongest.is_empty() {
+        return (None, Vec::new(), peaks.len());
+    }
+    let mean = samples.iter().sum::<f64>() / n;
+    let mut y: Vec<f64> = samples.iter().map(|v| v - mean).collect();
+    let half_width = 0.75 * periodogram.resolution_hz();
+    let lines: Vec<spectrum::SpectralLine> = strongest
+        .iter()
+        .map(|p| spectrum::fit_line(&y, sample_rate_hz, p.frequency_hz, half_width))
+        .collect();
+    spectrum::subtract_lines(&mut y, sample_rate_hz, &lines);
+    let kept = peaks.len() - lines.len();
+    (Some(y), lines, kept)
 }
 
 /// Bins of the narrow peaks, widened by one bin on each side, to leave out of the fit.

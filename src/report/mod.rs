@@ -239,6 +239,15 @@ pub struct EquipartitionReport {
     pub mean: f64,
     pub slope_per_s: f64,
     pub detrend: String,
+    /// Sinusoids fitted and subtracted before the autocorrelation and equipartition methods.
+    pub lines_removed: Vec<LineReport>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct LineReport {
+    pub frequency_hz: f64,
+    /// Amplitude in the signal unit.
+    pub amplitude: f64,
 }
 
 /// Arrays for plotting.
@@ -490,6 +499,14 @@ fn axis_report(
             variance_unit: format!("{u}^2"),
             mean: a.variance.mean,
             slope_per_s: a.variance.slope_per_s,
+            lines_removed: a
+                .lines_removed
+                .iter()
+                .map(|l| LineReport {
+                    frequency_hz: l.frequency_hz,
+                    amplitude: l.amplitude,
+                })
+                .collect(),
             detrend: match options.detrend {
                 Detrend::Mean => "mean",
                 Detrend::Linear => "linear",

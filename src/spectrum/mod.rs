@@ -13,6 +13,7 @@
 //! not doubled). Frequencies are in ascending order, f_k = k / (L dt).
 
 mod fit;
+mod lines;
 mod model;
 mod peaks;
 #[cfg(test)]
@@ -22,6 +23,7 @@ pub use fit::{
     FitRange, PlainLorentzianFit, SpectrumFit, SpectrumFitError, SpectrumFitOptions, fit_spectrum,
     plain_lorentzian_wls,
 };
+pub use lines::{SpectralLine, fit_line, subtract_lines};
 pub use model::{
     DetectorFilter, FilterSetting, HydroTerms, SpectrumModel, aliased_lorentzian_one_sided,
 };

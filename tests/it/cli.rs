@@ -156,28 +156,32 @@ fn summary_table_lists_each_axis_with_units() {
 }
 
 #[test]
-fn strict_mode_fails_a_recording_with_strong_pickup() {
+fn strict_mode_fails_a_calibration_whose_methods_disagree() {
+    // A wrong viscosity scales the drag, and so the spectral and autocorrelation stiffness, but
+    // not equipartition (nanometre data): the methods must then disagree.
     let dir = tempfile::tempdir().expect("temp dir");
-    simulate(
-        dir.path(),
-        "h.csv",
-        &["--hum-amplitude", "4", "--duration", "2"],
-    );
+    simulate(dir.path(), "w.csv", &["--duration", "2"]);
     let args = [
         "calibrate",
-        "h.csv",
+        "w.csv",
         "--bead-diameter",
         "1",
         "--temperature",
         "25",
+        "--viscosity",
+        "1.3",
     ];
     let relaxed = run(&args, dir.path());
     assert_eq!(relaxed.status.code(), Some(0));
-    assert!(text(&relaxed.stdout).contains("mains-pickup"));
+    let summary = text(&relaxed.stdout);
+    assert!(summary.contains("inconsistent"), "{summary}");
+    assert!(summary.contains("diffusion-mismatch"), "{summary}");
     let mut strict = args.to_vec();
     strict.push("--strict");
     let out = run(&strict, dir.path());
     assert_eq!(out.status.code(), Some(5), "{}", text(&out.stdout));
+    let good = run(&[&args[..6], &["--strict"]].concat(), dir.path());
+    assert_eq!(good.status.code(), Some(0), "{}", text(&good.stdout));
 }
 
 /// A bad input: file name, its bytes, extra arguments, expected exit code, and the fragments
