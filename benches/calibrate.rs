@@ -1,0 +1,86 @@
+//! Speed of one calibration against the FFT floor: parse and calibrate one axis of 2^22 f32
+//! samples end to end, next to one real-input FFT of the same length (plan included, as a fresh
+//! process pays it too) in the same run. Run with `cargo bench --bench calibrate`.
+
+use criterion::{Criterion, criterion_group, criterion_main};
+use std::hint::black_box;
+use trapwise::ingest::{self, Format, IngestOptions};
+use trapwise::recording::{AxisTrace, PositionUnit, Recording};
+use trapwise::settings::Settings;
+use trapwise::simulate::{Disturbances, OuAxis, simulate_axes};
+
+const N: usize = 1 << 22;
+const FS: f64 = 50_000.0;
+
+fn recording_bytes() -> Vec<u8> {
+    let axes = [OuAxis {
+        name: "x".into(),
+        corner_frequency_hz: 950.0,
+        variance: 1e-4,
+    }];
+    let samples = simulate_axes(&axes, FS, N, 1, &Disturbances::default()).remove(0);
+    let rec = Recording {
+        sample_rate_hz: FS,
+        unit: PositionUnit::Volt,
+        axes: vec![AxisTrace {
+            name: "x".into(),
+            samples,
+        }],
+    };
+    ingest::encode(&rec, Format::RawF32, None).expect("encodes")
+}
+
+fn settings() -> Settings {
+    let mut s = Settings::default();
+    for (k, v) in [
+        ("bead_diameter_um", "1"),
+        ("temperature_c", "25"),
+        ("sample_rate_hz", "50000"),
+        ("units", "V"),
+    ] {
+        s.apply(k, v).expect("valid setting");
+    }
+    s
+}
+
+fn bench(c: &mut Criterion) {
+    let bytes = recording_bytes();
+    let settings = settings();
+    let mut group = c.benchmark_group("one axis, 2^22 f32 samples");
+    group.sample_size(10);
+    group.bench_function("real FFT with plan (floor)", |b| {
+        b.iter(|| {
+            let mut planner = realfft::RealFftPlanner::<f64>::new();
+            let fft = planner.plan_fft_forward(N);
+            let mut input = fft.make_input_vec();
+            input
+                .iter_mut()
+                .enumerate()
+                .for_each(|(i, v)| *v = (i % 7) as f64);
+            let mut output = fft.make_output_vec();
+            fft.process(&mut input, &mut output)
+                .expect("sizes from the plan");
+            black_box(output[1])
+        })
+    });
+    group.bench_function("parse raw f32", |b| {
+        let options = IngestOptions {
+            sample_rate_hz: Some(FS),
+            unit: Some(PositionUnit::Volt),
+            format: Some(Format::RawF32),
+            ..IngestOptions::default()
+        };
+        b.iter(|| black_box(ingest::parse("x.f32", &bytes, &options).expect("parses")))
+    });
+    group.bench_function("parse and calibrate (pipeline)", |b| {
+        b.iter(|| {
+            black_box(
+                trapwise::pipeline::run("x.f32", &bytes, &settings, false).expect("calibrates"),
+            )
+        })
+    });
+    group.finish();
+}
+
+criterion_group!(benches, bench);
+criterion_main!(benches);
