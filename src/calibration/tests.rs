@@ -331,3 +331,56 @@ fn consensus_never_leaves_the_range_of_its_estimates() {
     assert!((c.estimate.value - 1.0).abs() < 1e-12);
     assert!((c.estimate.se - sa).abs() < 1e-12);
 }
+
+#[test]
+fn a_corner_frequency_near_nyquist_is_reported() {
+    // kappa = 0.05 pN/nm gives fc ~ 950 Hz; sampled at 4 kHz that is 47 % of Nyquist.
+    let phys = physics(&conditions()).expect("valid");
+    let fc = KAPPA_PN_PER_NM * 1e-3 / (2.0 * PI * phys.stokes_drag_kg_per_s.value);
+    let axes = [OuAxis {
+        name: "x".into(),
+        corner_frequency_hz: fc,
+        variance: phys.thermal_energy_j / (KAPPA_PN_PER_NM * 1e-3) * 1e18,
+    }];
+    let fs = 4_000.0;
+    let samples = simulate_axes(&axes, fs, 1 << 16, 70_000, &Disturbances::default()).remove(0);
+    let rec = Recording {
+        sample_rate_hz: fs,
+        unit: PositionUnit::Nanometre,
+        axes: vec![AxisTrace {
+            name: "x".into(),
+            samples,
+        }],
+    };
+    let cal = calibrate(&rec, &conditions(), &AnalysisOptions::default()).expect("calibrates");
+    let axis = &cal.axes[0];
+    assert!(
+        axis.findings
+            .iter()
+            .any(|f| f.code == "corner-near-nyquist"),
+        "{:?}",
+        axis.findings
+    );
+    // Aliasing is modelled, so the estimate is still right.
+    let psd = axis.stiffness_pn_per_nm.psd;
+    assert!(
+        ((psd.value - KAPPA_PN_PER_NM) / psd.se).abs() < 4.0,
+        "{psd:?}"
+    );
+}
+
+#[test]
+fn white_detection_noise_fails_the_spectral_fit_and_the_methods_disagree() {
+    // White noise of 4 nm rms on a thermal rms of about 9 nm flattens the spectrum at high
+    // frequency, which no Lorentzian describes, and adds variance that equipartition counts.
+    let noisy = Disturbances {
+        white_noise: 4.0,
+        ..Disturbances::default()
+    };
+    let rec = record(80_000, 1 << 17, None, &noisy);
+    let cal = calibrate(&rec, &conditions(), &AnalysisOptions::default()).expect("calibrates");
+    let axis = &cal.axes[0];
+    let codes: Vec<_> = axis.findings.iter().map(|f| f.code).collect();
+    assert!(codes.contains(&"poor-spectral-fit"), "{codes:?}");
+    assert_eq!(axis.verdict, Verdict::Inconsistent);
+}
