@@ -213,7 +213,8 @@ pub fn app(state: AppState) -> Router {
                     path = %request.uri().path(),
                     request_id = %request_id,
                 )
-            }),
+            })
+            .on_response(tower_http::trace::DefaultOnResponse::new().level(tracing::Level::INFO)),
         )
         .layer(SetRequestIdLayer::x_request_id(MakeV7))
         .layer(tower_http::set_header::SetResponseHeaderLayer::if_not_present(
