@@ -1,0 +1,14 @@
+//! The one integration-test binary of trapwise. Each module below is one family of tests;
+//! keep this file a plain, commented list.
+
+// Shared helpers: test databases on both backends, test servers on port 0, demo recordings
+// made with `trapwise simulate`, and the offline CLI as the reference.
+mod support;
+
+// The store on SQLite and PostgreSQL: round trips, idempotency, lab scoping, tokens, paging.
+mod store;
+
+// The HTTP service end to end over a real socket, on both backends: uploads against the
+// offline CLI's numbers, listing, history, raw downloads, bad inputs, tokens, restarts,
+// operations endpoints, and the `upload` and `token` subcommands.
+mod service;
