@@ -168,3 +168,7 @@ impl Config {
         self.require_tokens || !self.bind.ip().is_loopback()
     }
 }
+
+#[cfg(test)]
+#[path = "config_tests.rs"]
+mod tests;

@@ -23,7 +23,10 @@ pub struct ServeArgs {
 }
 
 /// The configuration from the environment with the flags applied.
-pub(crate) fn config(bind: Option<SocketAddr>, data_dir: Option<PathBuf>) -> Result<Config, Failure> {
+pub(crate) fn config(
+    bind: Option<SocketAddr>,
+    data_dir: Option<PathBuf>,
+) -> Result<Config, Failure> {
     let mut config = Config::from_env().map_err(|e| Failure::new(2, e))?;
     if let Some(b) = bind {
         config.bind = b;

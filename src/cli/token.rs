@@ -60,12 +60,13 @@ pub(super) fn run(args: &TokenArgs) -> Result<u8, Failure> {
                 if !valid_lab(lab) {
                     return Err(Failure::new(
                         2,
-                        anyhow!(
-                            "--lab `{lab}`: use 1 to 100 letters, digits, '-', '_' or '.'"
-                        ),
+                        anyhow!("--lab `{lab}`: use 1 to 100 letters, digits, '-', '_' or '.'"),
                     ));
                 }
-                let (info, secret) = store.create_token(lab).await.map_err(|e| Failure::new(1, e))?;
+                let (info, secret) = store
+                    .create_token(lab)
+                    .await
+                    .map_err(|e| Failure::new(1, e))?;
                 print(&format!("{secret}\n"))?;
                 eprintln!(
                     "token {} for lab {} created; the secret above is shown only now",
@@ -82,14 +83,19 @@ pub(super) fn run(args: &TokenArgs) -> Result<u8, Failure> {
                         t.id,
                         t.lab,
                         t.created_at_ms,
-                        t.revoked_at_ms.map_or_else(|| "-".to_string(), |r| r.to_string())
+                        t.revoked_at_ms
+                            .map_or_else(|| "-".to_string(), |r| r.to_string())
                     ));
                 }
                 print(&text)?;
                 0
             }
             TokenAction::Revoke { id } => {
-                if store.revoke_token(id).await.map_err(|e| Failure::new(1, e))? {
+                if store
+                    .revoke_token(id)
+                    .await
+                    .map_err(|e| Failure::new(1, e))?
+                {
                     eprintln!("token {id} revoked");
                     0
                 } else {

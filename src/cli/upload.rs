@@ -68,7 +68,12 @@ async fn send(args: &UploadArgs) -> Result<u8, Failure> {
     let size = file
         .metadata()
         .await
-        .map_err(|e| Failure::new(EXIT_BAD_INPUT, anyhow!("cannot read {}: {e}", args.file.display())))?
+        .map_err(|e| {
+            Failure::new(
+                EXIT_BAD_INPUT,
+                anyhow!("cannot read {}: {e}", args.file.display()),
+            )
+        })?
         .len();
     let name = args
         .file
@@ -92,10 +97,11 @@ async fn send(args: &UploadArgs) -> Result<u8, Failure> {
             counter.inc(c.len() as u64);
         }
     });
-    let part = reqwest::multipart::Part::stream_with_length(reqwest::Body::wrap_stream(stream), size)
-        .file_name(name)
-        .mime_str("application/octet-stream")
-        .map_err(server_failure)?;
+    let part =
+        reqwest::multipart::Part::stream_with_length(reqwest::Body::wrap_stream(stream), size)
+            .file_name(name)
+            .mime_str("application/octet-stream")
+            .map_err(server_failure)?;
     let mut form = reqwest::multipart::Form::new()
         .text("instrument", args.instrument.clone())
         .text("trap", args.trap.clone());
@@ -144,7 +150,10 @@ async fn send(args: &UploadArgs) -> Result<u8, Failure> {
         Ok(p) => format!("server answered {} {}: {}", p.status, p.title, p.detail),
         Err(_) => format!(
             "server answered {status}: {}",
-            String::from_utf8_lossy(&body).chars().take(500).collect::<String>()
+            String::from_utf8_lossy(&body)
+                .chars()
+                .take(500)
+                .collect::<String>()
         ),
     };
     let code = match status.as_u16() {

@@ -45,7 +45,8 @@ impl Admission {
 
     fn report(&self) {
         metrics::gauge!("trapwise_calibration_queue_depth").set(self.queue_depth() as f64);
-        metrics::gauge!("trapwise_calibrations_admitted").set(self.admitted.load(Ordering::SeqCst) as f64);
+        metrics::gauge!("trapwise_calibrations_admitted")
+            .set(self.admitted.load(Ordering::SeqCst) as f64);
     }
 
     /// Takes a place, or `None` when every slot and queue place is taken.

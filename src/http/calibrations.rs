@@ -9,11 +9,11 @@ use super::wire::{
     stored_report,
 };
 use crate::store::ListFilter;
+use axum::Json;
 use axum::body::Body;
 use axum::extract::{Path, RawQuery, State};
 use axum::http::{HeaderValue, header};
 use axum::response::{IntoResponse, Response};
-use axum::Json;
 
 /// Default and largest page size of the listing.
 const DEFAULT_PAGE: u32 = 50;
@@ -32,13 +32,14 @@ fn not_found(id: &str) -> AppError {
 
 /// Query parameters as pairs; unknown names are rejected with the name.
 fn query(raw: Option<&str>, known: &[&str]) -> Result<Vec<(String, String)>, AppError> {
-    let uri: axum::http::Uri = format!("/?{}", raw.unwrap_or(""))
-        .parse()
-        .map_err(|_| AppError::BadRequest {
-            code: "malformed-query",
-            detail: "query string is not a valid URI query".into(),
-            field: None,
-        })?;
+    let uri: axum::http::Uri =
+        format!("/?{}", raw.unwrap_or(""))
+            .parse()
+            .map_err(|_| AppError::BadRequest {
+                code: "malformed-query",
+                detail: "query string is not a valid URI query".into(),
+                field: None,
+            })?;
     let pairs = axum::extract::Query::<Vec<(String, String)>>::try_from_uri(&uri)
         .map_err(|e| AppError::BadRequest {
             code: "malformed-query",
@@ -177,7 +178,11 @@ pub(crate) async fn list(
         .map(CalibrationDocument::from_stored)
         .collect::<Result<Vec<_>, _>>()?;
     let next_cursor = (items.len() == filter.limit as usize)
-        .then(|| items.last().map(|d| format!("{}.{}", d.created_at_ms, d.id)))
+        .then(|| {
+            items
+                .last()
+                .map(|d| format!("{}.{}", d.created_at_ms, d.id))
+        })
         .flatten();
     let next = next_cursor.as_ref().map(|c| {
         let mut url = format!("{API}/calibrations?limit={}&cursor={c}", filter.limit);
@@ -240,7 +245,8 @@ pub(crate) async fn recording(
     headers.insert(header::CONTENT_LENGTH, HeaderValue::from(size));
     if let Ok(v) = HeaderValue::from_str(&format!(
         "attachment; filename=\"{}\"",
-        row.file_name.replace(|c: char| !c.is_ascii_graphic() && c != ' ', "_")
+        row.file_name
+            .replace(|c: char| !c.is_ascii_graphic() && c != ' ', "_")
     )) {
         headers.insert(header::CONTENT_DISPOSITION, v);
     }

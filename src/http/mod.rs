@@ -14,8 +14,8 @@
 pub mod admission;
 pub mod auth;
 mod calibrations;
-mod ops;
 pub mod openapi;
+mod ops;
 pub mod problem;
 mod upload;
 pub mod wire;
@@ -33,7 +33,9 @@ use problem::AppError;
 use std::future::Future;
 use std::sync::{Arc, OnceLock};
 use std::time::Instant;
-use tower_http::request_id::{MakeRequestId, PropagateRequestIdLayer, RequestId, SetRequestIdLayer};
+use tower_http::request_id::{
+    MakeRequestId, PropagateRequestIdLayer, RequestId, SetRequestIdLayer,
+};
 use tower_http::trace::TraceLayer;
 
 /// The page served at `/`.
@@ -201,26 +203,31 @@ pub fn app(state: AppState) -> Router {
         .with_state(state)
         .layer(PropagateRequestIdLayer::x_request_id())
         .layer(
-            TraceLayer::new_for_http().make_span_with(|request: &axum::http::Request<_>| {
-                let request_id = request
-                    .headers()
-                    .get("x-request-id")
-                    .and_then(|v| v.to_str().ok())
-                    .unwrap_or("-");
-                tracing::info_span!(
-                    "request",
-                    method = %request.method(),
-                    path = %request.uri().path(),
-                    request_id = %request_id,
-                )
-            })
-            .on_response(tower_http::trace::DefaultOnResponse::new().level(tracing::Level::INFO)),
+            TraceLayer::new_for_http()
+                .make_span_with(|request: &axum::http::Request<_>| {
+                    let request_id = request
+                        .headers()
+                        .get("x-request-id")
+                        .and_then(|v| v.to_str().ok())
+                        .unwrap_or("-");
+                    tracing::info_span!(
+                        "request",
+                        method = %request.method(),
+                        path = %request.uri().path(),
+                        request_id = %request_id,
+                    )
+                })
+                .on_response(
+                    tower_http::trace::DefaultOnResponse::new().level(tracing::Level::INFO),
+                ),
         )
         .layer(SetRequestIdLayer::x_request_id(MakeV7))
-        .layer(tower_http::set_header::SetResponseHeaderLayer::if_not_present(
-            header::X_CONTENT_TYPE_OPTIONS,
-            HeaderValue::from_static("nosniff"),
-        ))
+        .layer(
+            tower_http::set_header::SetResponseHeaderLayer::if_not_present(
+                header::X_CONTENT_TYPE_OPTIONS,
+                HeaderValue::from_static("nosniff"),
+            ),
+        )
 }
 
 /// Serves `state` on `listener` until `shutdown` resolves, then finishes the requests in flight.

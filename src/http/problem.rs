@@ -100,7 +100,9 @@ pub enum AppError {
         field: Option<String>,
     },
     /// All calibration slots and the queue are taken (503 with Retry-After).
-    #[error("all {capacity} calibration slots and queue places are taken; retry after {retry_after_s} s")]
+    #[error(
+        "all {capacity} calibration slots and queue places are taken; retry after {retry_after_s} s"
+    )]
     Busy {
         /// Running plus waiting calibrations allowed.
         capacity: usize,
@@ -147,9 +149,7 @@ impl AppError {
             AppError::TooLarge { .. } => StatusCode::PAYLOAD_TOO_LARGE,
             AppError::UnsupportedMediaType { .. } => StatusCode::UNSUPPORTED_MEDIA_TYPE,
             AppError::Unprocessable { .. } => StatusCode::UNPROCESSABLE_ENTITY,
-            AppError::Busy { .. } | AppError::Unavailable { .. } => {
-                StatusCode::SERVICE_UNAVAILABLE
-            }
+            AppError::Busy { .. } | AppError::Unavailable { .. } => StatusCode::SERVICE_UNAVAILABLE,
             AppError::Internal { .. } => StatusCode::INTERNAL_SERVER_ERROR,
         }
     }

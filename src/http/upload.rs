@@ -96,13 +96,19 @@ async fn field_text(
 ) -> Result<String, AppError> {
     let mut bytes = Vec::new();
     while let Some(chunk) = field.chunk().await.map_err(|e| {
-        AppError::bad_field("malformed-multipart", name, format!("form field `{name}`: {e}"))
+        AppError::bad_field(
+            "malformed-multipart",
+            name,
+            format!("form field `{name}`: {e}"),
+        )
     })? {
         if bytes.len() + chunk.len() > MAX_FIELD_BYTES {
             return Err(AppError::bad_field(
                 "field-too-long",
                 name,
-                format!("form field `{name}` is longer than {MAX_FIELD_BYTES} bytes; a text field holds one value"),
+                format!(
+                    "form field `{name}` is longer than {MAX_FIELD_BYTES} bytes; a text field holds one value"
+                ),
             ));
         }
         bytes.extend_from_slice(&chunk);
@@ -125,21 +131,25 @@ async fn read_multipart(
     request: Request,
     pairs: &mut Vec<(String, String)>,
 ) -> Result<(Option<StagedBlob>, Option<String>), AppError> {
-    let mut multipart = Multipart::from_request(request, state).await.map_err(|e| {
-        AppError::BadRequest {
-            code: "malformed-multipart",
-            detail: format!("header `Content-Type`: {}", e.body_text()),
-            field: None,
-        }
-    })?;
+    let mut multipart =
+        Multipart::from_request(request, state)
+            .await
+            .map_err(|e| AppError::BadRequest {
+                code: "malformed-multipart",
+                detail: format!("header `Content-Type`: {}", e.body_text()),
+                field: None,
+            })?;
     let mut staged = None;
     let mut part_file_name = None;
     loop {
-        let field = multipart.next_field().await.map_err(|e| AppError::BadRequest {
-            code: "malformed-multipart",
-            detail: format!("multipart body: {e}; check the boundary and the part headers"),
-            field: None,
-        })?;
+        let field = multipart
+            .next_field()
+            .await
+            .map_err(|e| AppError::BadRequest {
+                code: "malformed-multipart",
+                detail: format!("multipart body: {e}; check the boundary and the part headers"),
+                field: None,
+            })?;
         let Some(field) = field else { break };
         let name = field.name().unwrap_or("").to_string();
         if name == "file" {
@@ -295,10 +305,7 @@ fn idempotency_key(sha256: &str, settings: &[(String, String)], labels: &Labels)
     crate::store::sha256_text(&text)
 }
 
-fn document_response(
-    status: StatusCode,
-    doc: &CalibrationDocument,
-) -> Result<Response, AppError> {
+fn document_response(status: StatusCode, doc: &CalibrationDocument) -> Result<Response, AppError> {
     let body = serde_json::to_string(doc).map_err(AppError::internal)?;
     let mut response = (status, body).into_response();
     let headers = response.headers_mut();
@@ -356,8 +363,7 @@ pub(crate) async fn create(
         .get(header::CONTENT_LENGTH)
         .and_then(|v| v.to_str().ok())
         .and_then(|v| v.parse::<u64>().ok());
-    if declared.is_some_and(|n| n > state.max_upload_bytes().saturating_add(FORM_OVERHEAD_BYTES))
-    {
+    if declared.is_some_and(|n| n > state.max_upload_bytes().saturating_add(FORM_OVERHEAD_BYTES)) {
         return Err(too_large(&state));
     }
     let mime = content_type(request.headers())?;
@@ -404,7 +410,10 @@ pub(crate) async fn create(
     let key = idempotency_key(&staged.sha256, &canonical, &labels);
     if let Some(existing) = state.store().find_by_key(&lab, &key).await? {
         metrics::counter!("trapwise_calibrations_total", "outcome" => "replayed").increment(1);
-        return document_response(StatusCode::OK, &CalibrationDocument::from_stored(&existing)?);
+        return document_response(
+            StatusCode::OK,
+            &CalibrationDocument::from_stored(&existing)?,
+        );
     }
 
     let place = state.admission().try_enter().ok_or(AppError::Busy {
@@ -433,8 +442,7 @@ pub(crate) async fn create(
     let mut report = match outcome {
         Ok(r) => r,
         Err(e) => {
-            metrics::counter!("trapwise_calibrations_total", "outcome" => "rejected")
-                .increment(1);
+            metrics::counter!("trapwise_calibrations_total", "outcome" => "rejected").increment(1);
             return Err(e.into());
         }
     };

@@ -17,19 +17,14 @@ use sqlx::{AnyPool, Executor, Row, SqlSafeStr};
 use std::path::Path;
 
 /// The embedded migrations, applied in order by `Store::connect`.
-const MIGRATIONS: [(i64, &str, &str); 1] = [(
-    1,
-    "initial",
-    include_str!("migrations/0001_initial.sql"),
-)];
+const MIGRATIONS: [(i64, &str, &str); 1] =
+    [(1, "initial", include_str!("migrations/0001_initial.sql"))];
 
 /// Why a store operation failed.
 #[derive(Debug, thiserror::Error)]
 pub enum StoreError {
     /// The database URL names a database this build does not speak.
-    #[error(
-        "database url `{url}` is not supported; use sqlite://PATH or postgres://USER@HOST/DB"
-    )]
+    #[error("database url `{url}` is not supported; use sqlite://PATH or postgres://USER@HOST/DB")]
     UnsupportedUrl {
         /// The URL with any password removed.
         url: String,
@@ -228,7 +223,8 @@ impl Store {
         sqlx::any::install_default_drivers();
         let backend = if database_url.starts_with("sqlite:") {
             Backend::Sqlite
-        } else if database_url.starts_with("postgres://") || database_url.starts_with("postgresql://")
+        } else if database_url.starts_with("postgres://")
+            || database_url.starts_with("postgresql://")
         {
             Backend::Postgres
         } else {
@@ -393,7 +389,8 @@ impl Store {
         lab: &str,
         id: &str,
     ) -> Result<Option<StoredCalibration>, StoreError> {
-        let sql = format!("SELECT {CALIBRATION_COLUMNS} FROM calibrations WHERE lab = $1 AND id = $2");
+        let sql =
+            format!("SELECT {CALIBRATION_COLUMNS} FROM calibrations WHERE lab = $1 AND id = $2");
         let row = sqlx::query(sqlx::AssertSqlSafe(sql))
             .bind(lab)
             .bind(id)
@@ -507,7 +504,10 @@ impl Store {
         })?;
         let secret = format!(
             "tw_{}",
-            random.iter().map(|b| format!("{b:02x}")).collect::<String>()
+            random
+                .iter()
+                .map(|b| format!("{b:02x}"))
+                .collect::<String>()
         );
         let info = TokenInfo {
             id: uuid::Uuid::now_v7().to_string(),

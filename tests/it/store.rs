@@ -56,7 +56,11 @@ async fn inserted_rows_read_back_field_for_field(backend: Backend) {
         "50618f915d3502d96cfbe05e5a7f78925627f22df56a4a593f5a430923b28b2c"
     );
     assert_eq!(
-        store.plots_json("lab-a", &new.id).await.expect("plots").as_deref(),
+        store
+            .plots_json("lab-a", &new.id)
+            .await
+            .expect("plots")
+            .as_deref(),
         Some("{\"axes\":[]}")
     );
     let path = store
@@ -70,18 +74,32 @@ async fn inserted_rows_read_back_field_for_field(backend: Backend) {
 async fn the_same_idempotency_key_is_stored_once(backend: Backend) {
     let db = TestDb::new(backend).await;
     let store = db.store().await;
-    let (first, inserted_first) = insert(&store, b"abc", new_calibration("lab-a", "k", "t1", 1)).await;
-    let (second, inserted_second) = insert(&store, b"abc", new_calibration("lab-a", "k", "t1", 2)).await;
+    let (first, inserted_first) =
+        insert(&store, b"abc", new_calibration("lab-a", "k", "t1", 1)).await;
+    let (second, inserted_second) =
+        insert(&store, b"abc", new_calibration("lab-a", "k", "t1", 2)).await;
     assert!(inserted_first);
     assert!(!inserted_second);
     assert_eq!(first, second);
     let counts = store.counts().await.expect("counts");
-    assert_eq!((counts.calibrations, counts.recordings, counts.blob_files, counts.temp_files), (1, 1, 1, 0));
+    assert_eq!(
+        (
+            counts.calibrations,
+            counts.recordings,
+            counts.blob_files,
+            counts.temp_files
+        ),
+        (1, 1, 1, 0)
+    );
     // The same key in another lab is another calibration; the bytes are still stored once.
-    let (_, inserted_other_lab) = insert(&store, b"abc", new_calibration("lab-b", "k", "t1", 3)).await;
+    let (_, inserted_other_lab) =
+        insert(&store, b"abc", new_calibration("lab-b", "k", "t1", 3)).await;
     assert!(inserted_other_lab);
     let counts = store.counts().await.expect("counts");
-    assert_eq!((counts.calibrations, counts.recordings, counts.blob_files), (2, 1, 1));
+    assert_eq!(
+        (counts.calibrations, counts.recordings, counts.blob_files),
+        (2, 1, 1)
+    );
     store.close().await;
 }
 
@@ -90,16 +108,27 @@ async fn another_labs_rows_read_as_absent(backend: Backend) {
     let store = db.store().await;
     let new = new_calibration("lab-a", "k", "t1", 5);
     insert(&store, b"abc", new.clone()).await;
-    assert_eq!(store.calibration("lab-b", &new.id).await.expect("read"), None);
-    assert_eq!(store.plots_json("lab-b", &new.id).await.expect("read"), None);
+    assert_eq!(
+        store.calibration("lab-b", &new.id).await.expect("read"),
+        None
+    );
+    assert_eq!(
+        store.plots_json("lab-b", &new.id).await.expect("read"),
+        None
+    );
     assert_eq!(store.find_by_key("lab-b", "k").await.expect("read"), None);
-    let filter = ListFilter { limit: 10, ..ListFilter::default() };
+    let filter = ListFilter {
+        limit: 10,
+        ..ListFilter::default()
+    };
     assert!(store.list("lab-b", &filter).await.expect("list").is_empty());
-    assert!(store
-        .history("lab-b", "bench-a", "t1", None, None, 10)
-        .await
-        .expect("history")
-        .is_empty());
+    assert!(
+        store
+            .history("lab-b", "bench-a", "t1", None, None, 10)
+            .await
+            .expect("history")
+            .is_empty()
+    );
     store.close().await;
 }
 
@@ -113,10 +142,18 @@ async fn listing_pages_newest_first_through_ties_and_filters(backend: Backend) {
     let db = TestDb::new(backend).await;
     let store = db.store().await;
     // Two rows share a time stamp: the id breaks the tie, so no row is lost between pages.
-    for (key, trap, t) in [("a", "t1", 10), ("b", "t2", 20), ("c", "t1", 20), ("d", "t1", 30)] {
+    for (key, trap, t) in [
+        ("a", "t1", 10),
+        ("b", "t2", 20),
+        ("c", "t1", 20),
+        ("d", "t1", 30),
+    ] {
         insert(&store, key.as_bytes(), new_calibration("lab", key, trap, t)).await;
     }
-    let mut filter = ListFilter { limit: 2, ..ListFilter::default() };
+    let mut filter = ListFilter {
+        limit: 2,
+        ..ListFilter::default()
+    };
     let first = store.list("lab", &filter).await.expect("page 1");
     check_page(&first, &[30, 20]);
     let last = first.last().expect("row");
@@ -128,9 +165,21 @@ async fn listing_pages_newest_first_through_ties_and_filters(backend: Backend) {
     seen.dedup();
     assert_eq!(seen.len(), 4);
 
-    let by_trap = ListFilter { trap: Some("t1".into()), limit: 10, ..ListFilter::default() };
-    check_page(&store.list("lab", &by_trap).await.expect("list"), &[30, 20, 10]);
-    let window = ListFilter { from_ms: Some(20), to_ms: Some(30), limit: 10, ..ListFilter::default() };
+    let by_trap = ListFilter {
+        trap: Some("t1".into()),
+        limit: 10,
+        ..ListFilter::default()
+    };
+    check_page(
+        &store.list("lab", &by_trap).await.expect("list"),
+        &[30, 20, 10],
+    );
+    let window = ListFilter {
+        from_ms: Some(20),
+        to_ms: Some(30),
+        limit: 10,
+        ..ListFilter::default()
+    };
     check_page(&store.list("lab", &window).await.expect("list"), &[20, 20]);
     let history = store
         .history("lab", "bench-a", "t1", Some(15), None, 10)
@@ -145,7 +194,10 @@ async fn tokens_find_their_lab_until_revoked(backend: Backend) {
     let store = db.store().await;
     let (info, secret) = store.create_token("lab-a").await.expect("create");
     assert!(secret.starts_with("tw_") && secret.len() == 3 + 64);
-    assert_eq!(store.lab_for_token(&secret).await.expect("lookup"), Some("lab-a".into()));
+    assert_eq!(
+        store.lab_for_token(&secret).await.expect("lookup"),
+        Some("lab-a".into())
+    );
     // The stored form is the hash: presenting the hash itself is not a valid token.
     let hash = trapwise::store::sha256_text(&secret);
     assert_eq!(store.lab_for_token(&hash).await.expect("lookup"), None);
@@ -156,7 +208,11 @@ async fn tokens_find_their_lab_until_revoked(backend: Backend) {
     assert!(store.revoke_token(&info.id).await.expect("revoke"));
     assert!(!store.revoke_token(&info.id).await.expect("revoke twice"));
     assert_eq!(store.lab_for_token(&secret).await.expect("lookup"), None);
-    assert!(store.tokens().await.expect("list")[0].revoked_at_ms.is_some());
+    assert!(
+        store.tokens().await.expect("list")[0]
+            .revoked_at_ms
+            .is_some()
+    );
     store.close().await;
 }
 
@@ -167,7 +223,13 @@ async fn reconnecting_keeps_rows_and_reapplies_no_migration(backend: Backend) {
     insert(&store, b"abc", new.clone()).await;
     store.close().await;
     let again = db.store().await;
-    assert!(again.calibration("lab", &new.id).await.expect("read").is_some());
+    assert!(
+        again
+            .calibration("lab", &new.id)
+            .await
+            .expect("read")
+            .is_some()
+    );
     again.close().await;
 }
 

@@ -265,7 +265,11 @@ fn common() -> Vec<(&'static str, &'static str, String)> {
 pub(crate) fn demo_files(dir: &Path) -> Vec<DemoFile> {
     let mut files = Vec::new();
     files.push(DemoFile {
-        path: simulate(dir, "two_axes.csv", &["--stiffness", "0.05,0.04", "--seed", "11"]),
+        path: simulate(
+            dir,
+            "two_axes.csv",
+            &["--stiffness", "0.05,0.04", "--seed", "11"],
+        ),
         conditions: common(),
     });
     files.push(DemoFile {
@@ -287,7 +291,11 @@ pub(crate) fn demo_files(dir: &Path) -> Vec<DemoFile> {
     i16.push(("--sample-rate", "sample_rate_hz", "20000".into()));
     i16.push(("--format", "format", "raw-i16".into()));
     i16.push(("--channels", "channels", "3".into()));
-    i16.push(("--volts-per-count", "volts_per_count", "0.00030517578125".into()));
+    i16.push((
+        "--volts-per-count",
+        "volts_per_count",
+        "0.00030517578125".into(),
+    ));
     files.push(DemoFile {
         path: simulate(
             dir,
@@ -392,7 +400,11 @@ pub(crate) async fn upload(
 }
 
 /// GETs a path; returns the status, the content type and the body bytes.
-pub(crate) async fn get(server: &TestServer, path: &str, token: Option<&str>) -> (u16, String, Vec<u8>) {
+pub(crate) async fn get(
+    server: &TestServer,
+    path: &str,
+    token: Option<&str>,
+) -> (u16, String, Vec<u8>) {
     let mut request = server.client.get(server.url(path));
     if let Some(t) = token {
         request = request.bearer_auth(t);
@@ -410,7 +422,11 @@ pub(crate) async fn get(server: &TestServer, path: &str, token: Option<&str>) ->
 }
 
 /// GETs a path and parses JSON.
-pub(crate) async fn get_json(server: &TestServer, path: &str, token: Option<&str>) -> (u16, serde_json::Value) {
+pub(crate) async fn get_json(
+    server: &TestServer,
+    path: &str,
+    token: Option<&str>,
+) -> (u16, serde_json::Value) {
     let (status, _, body) = get(server, path, token).await;
     (status, serde_json::from_slice(&body).expect("JSON body"))
 }
