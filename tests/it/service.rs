@@ -873,6 +873,64 @@ async fn a_restarted_service_still_serves_every_calibration(backend: Backend) {
     restarted.stop().await;
 }
 
+async fn shutdown_finishes_an_upload_in_flight(backend: Backend) {
+    let db = TestDb::new(backend).await;
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let mut server = TestServer::start(&db, options()).await;
+    let file = demo_csv(dir.path(), "in_flight.csv", 81);
+    let bytes = file.bytes();
+    let half = bytes.len() / 2;
+    let (first, second) = (bytes[..half].to_vec(), bytes[half..].to_vec());
+    let (release_tx, release_rx) = tokio::sync::oneshot::channel::<()>();
+    // The body sends its first half, then waits until the shutdown has begun.
+    let body = futures_util::stream::unfold(
+        (0, Some(release_rx), first, second),
+        |(step, release, first, second)| async move {
+            match step {
+                0 => Some((
+                    Ok::<_, std::io::Error>(first),
+                    (1, release, Vec::new(), second),
+                )),
+                1 => {
+                    if let Some(rx) = release {
+                        let _ = rx.await;
+                    }
+                    Some((Ok(second), (2, None, Vec::new(), Vec::new())))
+                }
+                _ => None,
+            }
+        },
+    );
+    let mut query = file.fields();
+    query.extend(LABELS.iter().map(|(k, v)| (k.to_string(), v.to_string())));
+    query.push(("file_name".into(), file.name()));
+    let request = server
+        .client
+        .post(server.url(&with_query("/api/v1/calibrations", &query)))
+        .header("content-type", "text/csv")
+        .body(reqwest::Body::wrap_stream(body))
+        .send();
+    let in_flight = tokio::spawn(request);
+    tokio::time::sleep(std::time::Duration::from_millis(300)).await;
+    server.begin_shutdown();
+    tokio::time::sleep(std::time::Duration::from_millis(100)).await;
+    let _ = release_tx.send(());
+    let response = in_flight.await.expect("task").expect("upload finishes");
+    assert_eq!(response.status().as_u16(), 201);
+    let doc: Value = response.json().await.expect("JSON");
+    assert_eq!(doc["result"], cli_result(&file));
+    server.stop().await;
+    let restarted = TestServer::start(&db, options()).await;
+    let (status, _) = get_json(
+        &restarted,
+        doc["links"]["self"].as_str().unwrap_or(""),
+        None,
+    )
+    .await;
+    assert_eq!(status, 200);
+    restarted.stop().await;
+}
+
 async fn a_full_queue_answers_503_with_retry_after(backend: Backend) {
     let db = TestDb::new(backend).await;
     let dir = tempfile::tempdir().expect("temporary folder");
@@ -1106,6 +1164,7 @@ on_both_backends!(
     tokens_confine_each_lab_to_its_own_calibrations,
     a_restarted_service_still_serves_every_calibration,
     a_full_queue_answers_503_with_retry_after,
+    shutdown_finishes_an_upload_in_flight,
     health_metrics_openapi_and_page_are_served,
     upload_subcommand_prints_what_calibrate_prints,
     token_subcommand_creates_lists_and_revokes,

@@ -181,6 +181,13 @@ impl TestServer {
         format!("{}{path}", self.base)
     }
 
+    /// Tells the server to shut down gracefully, without waiting.
+    pub(crate) fn begin_shutdown(&mut self) {
+        if let Some(tx) = self.shutdown.take() {
+            let _ = tx.send(());
+        }
+    }
+
     /// Stops the server gracefully and closes its store.
     pub(crate) async fn stop(mut self) {
         if let Some(tx) = self.shutdown.take() {
