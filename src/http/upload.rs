@@ -32,6 +32,10 @@ const MAX_FIELD_BYTES: usize = 64 * 1024;
 const FORM_OVERHEAD_BYTES: u64 = 1 << 20;
 /// Longest label, characters.
 const MAX_LABEL_CHARS: usize = 200;
+/// Most bytes read and discarded after refusing an upload (see `linger`).
+const LINGER_BYTES: usize = 16 << 20;
+/// Longest time spent discarding them, seconds.
+const LINGER_S: u64 = 10;
 /// Seconds a client is asked to wait when the queue is full.
 const RETRY_AFTER_S: u64 = 5;
 /// Raw-body content types accepted (besides none at all).
@@ -54,6 +58,46 @@ struct Labels {
     file_name: String,
 }
 
+/// After refusing an upload, keeps reading (and discarding) what the client still sends, for at
+/// most `LINGER_BYTES` or `LINGER_S`, so that it can read the 413 instead of seeing its
+/// connection reset mid-send (the "lingering close" of common HTTP servers).
+fn linger<S, T, E>(mut chunks: S)
+where
+    S: futures_util::Stream<Item = Result<T, E>> + Unpin + Send + 'static,
+    T: AsRef<[u8]> + Send,
+{
+    tokio::spawn(async move {
+        let drain = async {
+            let mut n_bytes = 0usize;
+            while let Some(Ok(chunk)) = chunks.next().await {
+                n_bytes += chunk.as_ref().len();
+                if n_bytes > LINGER_BYTES {
+                    break;
+                }
+            }
+        };
+        let _ = tokio::time::timeout(std::time::Duration::from_secs(LINGER_S), drain).await;
+    });
+}
+
+/// Lingers on the rest of a multipart body (see `linger`).
+fn linger_multipart(mut multipart: Multipart) {
+    tokio::spawn(async move {
+        let drain = async {
+            let mut n_bytes = 0usize;
+            while let Ok(Some(mut field)) = multipart.next_field().await {
+                while let Ok(Some(chunk)) = field.chunk().await {
+                    n_bytes += chunk.len();
+                    if n_bytes > LINGER_BYTES {
+                        return;
+                    }
+                }
+            }
+        };
+        let _ = tokio::time::timeout(std::time::Duration::from_secs(LINGER_S), drain).await;
+    });
+}
+
 fn too_large(state: &AppState) -> AppError {
     AppError::TooLarge {
         limit_bytes: state.max_upload_bytes(),
@@ -66,7 +110,7 @@ fn io_error(e: std::io::Error) -> AppError {
 }
 
 /// Streams `chunks` into a new blob file, enforcing the size limit.
-async fn stream_to_blob<S, E>(state: &AppState, mut chunks: S) -> Result<StagedBlob, AppError>
+async fn stream_to_blob<S, E>(state: &AppState, chunks: &mut S) -> Result<StagedBlob, AppError>
 where
     S: futures_util::Stream<Item = Result<axum::body::Bytes, E>> + Unpin,
     E: std::fmt::Display,
@@ -168,7 +212,18 @@ async fn read_multipart(
                     Err(e) => Some((Err(e), f)),
                 }
             });
-            staged = Some(stream_to_blob(state, Box::pin(stream)).await?);
+            let mut stream = Box::pin(stream);
+            let result = stream_to_blob(state, &mut stream).await;
+            drop(stream);
+            match result {
+                Ok(blob) => staged = Some(blob),
+                Err(e) => {
+                    if matches!(e, AppError::TooLarge { .. }) {
+                        linger_multipart(multipart);
+                    }
+                    return Err(e);
+                }
+            }
         } else if name.is_empty() {
             return Err(AppError::BadRequest {
                 code: "malformed-multipart",
@@ -354,44 +409,68 @@ fn document_response(status: StatusCode, doc: &CalibrationDocument) -> Result<Re
 )]
 pub(crate) async fn create(
     State(state): State<AppState>,
-    Lab(lab): Lab,
+    lab: Result<Lab, AppError>,
     request: Request,
 ) -> Result<Response, AppError> {
-    let mut pairs = query_pairs(&request)?;
+    // Refusals before the body is read linger on it, so that large uploads see the answer.
+    let refuse = |request: Request, e: AppError| {
+        linger(request.into_body().into_data_stream());
+        Err(e)
+    };
+    let lab = match lab {
+        Ok(Lab(lab)) => lab,
+        Err(e) => return refuse(request, e),
+    };
+    let mut pairs = match query_pairs(&request) {
+        Ok(p) => p,
+        Err(e) => return refuse(request, e),
+    };
     let declared = request
         .headers()
         .get(header::CONTENT_LENGTH)
         .and_then(|v| v.to_str().ok())
         .and_then(|v| v.parse::<u64>().ok());
-    if declared.is_some_and(|n| n > state.max_upload_bytes().saturating_add(FORM_OVERHEAD_BYTES)) {
-        return Err(too_large(&state));
-    }
-    let mime = content_type(request.headers())?;
+    let raw_limit_exceeded = declared.is_some_and(|n| n > state.max_upload_bytes());
+    let form_limit_exceeded =
+        declared.is_some_and(|n| n > state.max_upload_bytes().saturating_add(FORM_OVERHEAD_BYTES));
+    let mime = match content_type(request.headers()) {
+        Ok(m) => m,
+        Err(e) => return refuse(request, e),
+    };
     let essence = mime
         .as_deref()
         .map(|m| m.split(';').next().unwrap_or("").trim().to_string());
-    let (staged, part_file_name) = match essence.as_deref() {
-        Some("multipart/form-data") => read_multipart(&state, request, &mut pairs).await?,
-        None => {
-            let stream = request.into_body().into_data_stream();
-            (Some(stream_to_blob(&state, stream).await?), None)
-        }
-        Some(m) if RAW_TYPES.contains(&m) => {
-            if declared.is_some_and(|n| n > state.max_upload_bytes()) {
-                return Err(too_large(&state));
-            }
-            let stream = request.into_body().into_data_stream();
-            (Some(stream_to_blob(&state, stream).await?), None)
-        }
-        Some(m) => {
-            return Err(AppError::UnsupportedMediaType {
+    let is_multipart = essence.as_deref() == Some("multipart/form-data");
+    let is_raw = essence.as_deref().is_none_or(|m| RAW_TYPES.contains(&m));
+    if !is_multipart && !is_raw {
+        return refuse(
+            request,
+            AppError::UnsupportedMediaType {
                 code: "unsupported-media-type",
                 detail: format!(
-                    "header `Content-Type`: `{m}` is not accepted; send multipart/form-data with \
-                     a `file` part, or the raw file as application/octet-stream"
+                    "header `Content-Type`: `{}` is not accepted; send multipart/form-data with \
+                 a `file` part, or the raw file as application/octet-stream",
+                    essence.unwrap_or_default()
                 ),
                 field: None,
-            });
+            },
+        );
+    }
+    if form_limit_exceeded || (is_raw && raw_limit_exceeded) {
+        return refuse(request, too_large(&state));
+    }
+    let (staged, part_file_name) = if is_multipart {
+        read_multipart(&state, request, &mut pairs).await?
+    } else {
+        let mut stream = request.into_body().into_data_stream();
+        match stream_to_blob(&state, &mut stream).await {
+            Ok(blob) => (Some(blob), None),
+            Err(e) => {
+                if matches!(e, AppError::TooLarge { .. }) {
+                    linger(stream);
+                }
+                return Err(e);
+            }
         }
     };
     let staged = staged.ok_or_else(|| {

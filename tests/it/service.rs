@@ -1,10 +1,12 @@
 //! The service end to end: a real server on port 0, reqwest over the socket, the real binary
-//! as the offline reference, on SQLite and on PostgreSQL.
+//! as the offline reference, on SQLite and on PostgreSQL. The problem documents of bad uploads
+//! are pinned by a snapshot (set TRAPWISE_UPDATE_SNAPSHOTS=1 to rewrite it after a deliberate
+//! change).
 
 use crate::on_both_backends;
 use crate::support::{
-    Backend, DemoFile, TestDb, TestServer, binary, cli_result, demo_csv, demo_files, get, get_json,
-    options, upload, with_query,
+    Backend, DemoFile, TestDb, TestServer, binary, check_snapshot, cli_result, demo_csv,
+    demo_files, get, get_json, options, upload, with_query,
 };
 use serde_json::Value;
 use trapwise::http::ServiceOptions;
@@ -622,8 +624,15 @@ async fn bad_uploads_get_their_status_and_problem_and_store_nothing(backend: Bac
     let (status, _) = upload(&server, &good, &LABELS, None).await;
     assert_eq!(status, 201);
     let before = counts(&server).await;
+    let mut snapshot = String::new();
     for case in bad_cases(&good.bytes()) {
         let (status, content_type, body) = send_case(&server, &case, None).await;
+        let problem: Value = serde_json::from_slice(&body).unwrap_or(Value::Null);
+        snapshot.push_str(&format!(
+            "== {}\n{}\n\n",
+            case.what,
+            serde_json::to_string_pretty(&problem).unwrap_or_default()
+        ));
         check_problem(
             case.what,
             (status, &content_type, &body),
@@ -639,6 +648,8 @@ async fn bad_uploads_get_their_status_and_problem_and_store_nothing(backend: Bac
             case.what
         );
     }
+    // The problem documents are the same on both backends, word for word.
+    check_snapshot("problems.txt", &snapshot);
     // Request-level mistakes: no file part, a content type that is not a recording.
     let form = reqwest::multipart::Form::new()
         .text("instrument", "bench-a")

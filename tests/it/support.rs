@@ -447,3 +447,26 @@ pub(crate) fn with_query(path: &str, pairs: &[(String, String)]) -> String {
         .collect();
     format!("{path}?{}", query.join("&"))
 }
+
+/// Compares `actual` with `tests/it/snapshots/<name>`; `TRAPWISE_UPDATE_SNAPSHOTS=1` rewrites it.
+#[track_caller]
+pub(crate) fn check_snapshot(name: &str, actual: &str) {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/it/snapshots")
+        .join(name);
+    if std::env::var_os("TRAPWISE_UPDATE_SNAPSHOTS").is_some() {
+        std::fs::create_dir_all(path.parent().unwrap_or(Path::new("."))).expect("snapshot folder");
+        std::fs::write(&path, actual).expect("write snapshot");
+        return;
+    }
+    let expected = std::fs::read_to_string(&path).unwrap_or_else(|_| {
+        panic!(
+            "missing snapshot {}; run with TRAPWISE_UPDATE_SNAPSHOTS=1",
+            path.display()
+        )
+    });
+    assert!(
+        expected == actual,
+        "snapshot {name} changed; rerun with TRAPWISE_UPDATE_SNAPSHOTS=1 if intended\n--- expected\n{expected}\n--- actual\n{actual}"
+    );
+}
