@@ -3,14 +3,17 @@
 //! The numerical core (`recording`, `water`, `drag`, `spectrum`, `autocorrelation`,
 //! `equipartition`, `calibration`, `findings`, `simulate`) is pure: it takes plain data and
 //! returns plain data, and imports no IO, async or HTTP crate. Around it sit `ingest`
-//! (file formats), `report` (wire types and text summaries) and `cli`.
+//! (file formats), `report` (wire types and text summaries), `store` (database and raw
+//! uploads), `http` (the calibration service), `config` (the service's environment) and `cli`.
 
 pub mod autocorrelation;
 pub mod calibration;
 pub mod cli;
+pub mod config;
 pub mod drag;
 pub mod equipartition;
 pub mod findings;
+pub mod http;
 pub mod ingest;
 mod linalg;
 pub mod pipeline;
@@ -19,4 +22,5 @@ pub mod report;
 pub mod settings;
 pub mod simulate;
 pub mod spectrum;
+pub mod store;
 pub mod water;

@@ -4,16 +4,25 @@
 //! Exit codes (documented in the README): 0 success; 1 an unexpected failure (IO and the like);
 //! 2 a usage error (clap); 3 the input file could not be read as a recording; 4 the recording
 //! was read but cannot be calibrated; 5 `--strict` was given and the calibration is inconsistent
-//! or has an error-level finding.
+//! or has an error-level finding; 6 `upload`: the server refused the upload for a reason other
+//! than the recording (token, size, queue full) or could not be reached.
+//!
+//! `serve` and `token` read the service configuration from the environment (`config`).
 
 mod calibrate;
+mod serve;
 mod simulate;
+mod token;
+mod upload;
 
 use clap::{Args, Parser, Subcommand};
 use std::path::PathBuf;
 
 pub use calibrate::CalibrateArgs;
+pub use serve::ServeArgs;
 pub use simulate::SimulateArgs;
+pub use token::{TokenAction, TokenArgs};
+pub use upload::UploadArgs;
 
 /// Exit code for input that could not be read as a recording.
 pub const EXIT_BAD_INPUT: u8 = 3;
@@ -21,6 +30,8 @@ pub const EXIT_BAD_INPUT: u8 = 3;
 pub const EXIT_NOT_CALIBRATABLE: u8 = 4;
 /// Exit code for `--strict` when the result is not trustworthy.
 pub const EXIT_STRICT: u8 = 5;
+/// Exit code for an upload the server refused (not for the recording) or could not take.
+pub const EXIT_SERVER: u8 = 6;
 
 /// trapwise: trap stiffness and detector sensitivity from a bead's thermal motion.
 #[derive(Debug, Parser)]
@@ -37,6 +48,12 @@ pub enum Command {
     Calibrate(CalibrateArgs),
     /// Write exact simulated recordings with a known truth.
     Simulate(SimulateArgs),
+    /// Run the calibration service (HTTP API, SQLite or PostgreSQL storage).
+    Serve(ServeArgs),
+    /// Send a recording to a calibration service and print its summary.
+    Upload(UploadArgs),
+    /// Create, list and revoke the bearer tokens of labs.
+    Token(TokenArgs),
 }
 
 /// Run conditions and analysis options shared by `calibrate` and `upload`.
@@ -170,6 +187,9 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
     match cli.command {
         Command::Calibrate(args) => calibrate::run(&args),
         Command::Simulate(args) => simulate::run(&args),
+        Command::Serve(args) => serve::run(&args),
+        Command::Upload(args) => upload::run(&args),
+        Command::Token(args) => token::run(&args),
     }
 }
 
@@ -182,3 +202,6 @@ pub(crate) fn read_file(path: &PathBuf) -> Result<Vec<u8>, Failure> {
         )
     })
 }
+
+#[cfg(test)]
+mod tests;

@@ -1,9 +1,24 @@
-//! The integration test binary. Each module is one area:
-//! - `architecture`: the layering invariants (a pure numerical core) and the source conventions;
-//! - `cli`: the `trapwise` binary end to end (calibrate, simulate, bad input, exit codes).
+//! The one integration-test binary of trapwise. Each module below is one family of tests;
+//! keep this file a plain, commented list.
 
 // Test code states tolerances as written (a * se + b), not as fused multiply-adds.
 #![allow(clippy::suboptimal_flops)]
 
+// The layering invariants (a pure numerical core) and the source conventions.
 mod architecture;
+
+// The `trapwise` binary offline: calibrate and simulate in every format, bad input with located
+// messages and exit codes (pinned by snapshot).
 mod cli;
+
+// Shared helpers: test databases on both backends, test servers on port 0, demo recordings
+// made with `trapwise simulate`, and the offline CLI as the reference.
+mod support;
+
+// The store on SQLite and PostgreSQL: round trips, idempotency, lab scoping, tokens, paging.
+mod store;
+
+// The HTTP service end to end over a real socket, on both backends: uploads against the
+// offline CLI's numbers, listing, history, raw downloads, bad inputs, tokens, restarts,
+// operations endpoints, and the `upload` and `token` subcommands.
+mod service;

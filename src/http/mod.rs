@@ -1,0 +1,243 @@
+//! The HTTP service: routes, shared state, middleware and the server loop.
+//!
+//! `app(state)` builds the whole `Router`, so tests can drive it without a socket; `serve`
+//! takes the listener and the shutdown signal from the caller, so end-to-end tests bind port 0
+//! and stop the server when they like. Shutdown is graceful: the listener closes, and requests
+//! in flight (uploads included) run to completion.
+//!
+//! Routes (documented in the OpenAPI document at `/api/v1/openapi.json`):
+//! `POST /api/v1/calibrations`, `GET /api/v1/calibrations`, `GET /api/v1/calibrations/{id}`,
+//! `GET /api/v1/calibrations/{id}/recording`, `GET /api/v1/calibrations/{id}/plots`,
+//! `GET /api/v1/instruments/{instrument}/traps/{trap}/history`, `GET /healthz`, `GET /metrics`,
+//! and the page at `/`.
+
+pub mod admission;
+pub mod auth;
+mod calibrations;
+pub mod openapi;
+mod ops;
+pub mod problem;
+mod upload;
+pub mod wire;
+
+use crate::store::Store;
+use admission::Admission;
+use axum::Router;
+use axum::extract::{DefaultBodyLimit, MatchedPath, Request};
+use axum::http::{HeaderValue, header};
+use axum::middleware::Next;
+use axum::response::{Html, IntoResponse, Response};
+use axum::routing::get;
+use metrics_exporter_prometheus::{PrometheusBuilder, PrometheusHandle};
+use problem::AppError;
+use std::future::Future;
+use std::sync::{Arc, OnceLock};
+use std::time::Instant;
+use tower_http::request_id::{
+    MakeRequestId, PropagateRequestIdLayer, RequestId, SetRequestIdLayer,
+};
+use tower_http::trace::TraceLayer;
+
+/// The page served at `/`.
+const INDEX_HTML: &str = include_str!("../../static/index.html");
+
+/// Limits and access policy of a running service.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct ServiceOptions {
+    /// Largest recording accepted, bytes.
+    pub max_upload_bytes: u64,
+    /// Calibrations running at once.
+    pub max_concurrent: usize,
+    /// Calibrations waiting beyond those before 503.
+    pub queue: usize,
+    /// Whether every API request needs a bearer token.
+    pub tokens_required: bool,
+}
+
+/// State shared by all handlers (cheap to clone).
+#[derive(Clone, Debug)]
+pub struct AppState {
+    inner: Arc<Inner>,
+}
+
+#[derive(Debug)]
+struct Inner {
+    store: Store,
+    options: ServiceOptions,
+    admission: Arc<Admission>,
+}
+
+impl AppState {
+    /// State over a connected store.
+    pub fn new(store: Store, options: ServiceOptions) -> Self {
+        AppState {
+            inner: Arc::new(Inner {
+                store,
+                options,
+                admission: Admission::new(options.max_concurrent, options.queue),
+            }),
+        }
+    }
+
+    /// The store.
+    pub fn store(&self) -> &Store {
+        &self.inner.store
+    }
+
+    /// The largest accepted upload, bytes.
+    pub fn max_upload_bytes(&self) -> u64 {
+        self.inner.options.max_upload_bytes
+    }
+
+    /// Whether requests need a bearer token.
+    pub fn tokens_required(&self) -> bool {
+        self.inner.options.tokens_required
+    }
+
+    /// The calibration admission gate.
+    pub fn admission(&self) -> &Arc<Admission> {
+        &self.inner.admission
+    }
+}
+
+/// The process-wide Prometheus recorder's handle. The recorder is global, so it is installed
+/// once and shared by every server in the process (tests start several).
+pub fn metrics_handle() -> &'static PrometheusHandle {
+    static HANDLE: OnceLock<PrometheusHandle> = OnceLock::new();
+    HANDLE.get_or_init(|| {
+        let builder = PrometheusBuilder::new();
+        match builder.install_recorder() {
+            Ok(handle) => handle,
+            // Another recorder is installed: render an empty one rather than fail.
+            Err(_) => PrometheusBuilder::new().build_recorder().handle(),
+        }
+    })
+}
+
+/// Request ids are UUID v7, so they sort by time in the logs.
+#[derive(Clone, Copy, Debug, Default)]
+struct MakeV7;
+
+impl MakeRequestId for MakeV7 {
+    fn make_request_id<B>(&mut self, _request: &axum::http::Request<B>) -> Option<RequestId> {
+        HeaderValue::from_str(&uuid::Uuid::now_v7().to_string())
+            .ok()
+            .map(RequestId::new)
+    }
+}
+
+/// Counts requests and their durations by route and status.
+async fn track(request: Request, next: Next) -> Response {
+    let route = request
+        .extensions()
+        .get::<MatchedPath>()
+        .map_or_else(|| "unmatched".to_string(), |p| p.as_str().to_string());
+    let method = request.method().to_string();
+    let started = Instant::now();
+    let response = next.run(request).await;
+    let status = response.status().as_u16().to_string();
+    metrics::counter!("trapwise_http_requests_total", "method" => method.clone(), "route" => route.clone(), "status" => status)
+        .increment(1);
+    metrics::histogram!("trapwise_http_request_duration_seconds", "method" => method, "route" => route)
+        .record(started.elapsed().as_secs_f64());
+    response
+}
+
+async fn index() -> Html<&'static str> {
+    Html(INDEX_HTML)
+}
+
+async fn not_found(request: Request) -> AppError {
+    AppError::NotFound {
+        detail: format!(
+            "no resource at `{}`; the API lives under {} (see {}/openapi.json)",
+            request.uri().path(),
+            wire::API,
+            wire::API
+        ),
+    }
+}
+
+async fn method_not_allowed(request: Request) -> Response {
+    let mut response = AppError::BadRequest {
+        code: "method-not-allowed",
+        detail: format!(
+            "method {} is not allowed at `{}`; see {}/openapi.json",
+            request.method(),
+            request.uri().path(),
+            wire::API
+        ),
+        field: None,
+    }
+    .into_response();
+    *response.status_mut() = axum::http::StatusCode::METHOD_NOT_ALLOWED;
+    response
+}
+
+/// The whole application.
+pub fn app(state: AppState) -> Router {
+    let api = Router::new()
+        .route(
+            "/calibrations",
+            get(calibrations::list)
+                .post(upload::create)
+                .layer(DefaultBodyLimit::disable()),
+        )
+        .route("/calibrations/{id}", get(calibrations::one))
+        .route("/calibrations/{id}/recording", get(calibrations::recording))
+        .route("/calibrations/{id}/plots", get(calibrations::plots))
+        .route(
+            "/instruments/{instrument}/traps/{trap}/history",
+            get(calibrations::history),
+        )
+        .route("/openapi.json", get(ops::openapi));
+    Router::new()
+        .route("/", get(index))
+        .route("/index.html", get(index))
+        .route("/healthz", get(ops::healthz))
+        .route("/metrics", get(ops::metrics))
+        .nest(wire::API, api)
+        .route_layer(axum::middleware::from_fn(track))
+        .fallback(not_found)
+        .method_not_allowed_fallback(method_not_allowed)
+        .with_state(state)
+        .layer(PropagateRequestIdLayer::x_request_id())
+        .layer(
+            TraceLayer::new_for_http()
+                .make_span_with(|request: &axum::http::Request<_>| {
+                    let request_id = request
+                        .headers()
+                        .get("x-request-id")
+                        .and_then(|v| v.to_str().ok())
+                        .unwrap_or("-");
+                    tracing::info_span!(
+                        "request",
+                        method = %request.method(),
+                        path = %request.uri().path(),
+                        request_id = %request_id,
+                    )
+                })
+                .on_response(
+                    tower_http::trace::DefaultOnResponse::new().level(tracing::Level::INFO),
+                ),
+        )
+        .layer(SetRequestIdLayer::x_request_id(MakeV7))
+        .layer(
+            tower_http::set_header::SetResponseHeaderLayer::if_not_present(
+                header::X_CONTENT_TYPE_OPTIONS,
+                HeaderValue::from_static("nosniff"),
+            ),
+        )
+}
+
+/// Serves `state` on `listener` until `shutdown` resolves, then finishes the requests in flight.
+pub async fn serve(
+    listener: tokio::net::TcpListener,
+    state: AppState,
+    shutdown: impl Future<Output = ()> + Send + 'static,
+) -> std::io::Result<()> {
+    metrics_handle();
+    axum::serve(listener, app(state))
+        .with_graceful_shutdown(shutdown)
+        .await
+}

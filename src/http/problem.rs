@@ -1,0 +1,342 @@
+//! The one application error of the HTTP layer and its RFC 9457 problem document.
+//!
+//! Every failure a handler returns is an `AppError`; its single `IntoResponse` writes
+//! `application/problem+json` with `type` = `https://trapwise.invalid/problems/<code>` (the
+//! reserved `.invalid` domain says the URI identifies the problem and is not meant to be
+//! fetched), `title`, `status`, a `detail` that names the field, line or byte, and the
+//! extension members `code` (the same kebab-case code) and, where one field is at fault, `field`.
+//! 4xx answers are logged at debug level; 5xx answers are logged as errors and their detail
+//! is hidden from the client.
+//!
+//! Status codes (the one place they are decided): 400 malformed input, 401 missing or bad
+//! token, 404 unknown id (including another lab's), 413 upload past the limit, 415 content type
+//! or file format not read, 422 data that parse but cannot be calibrated, 503 queue full or
+//! database down, 500 anything else.
+
+use crate::calibration::CalibrationError;
+use crate::ingest::IngestError;
+use crate::pipeline::PipelineError;
+use crate::settings::SettingsError;
+use crate::store::StoreError;
+use axum::http::{HeaderValue, StatusCode, header};
+use axum::response::{IntoResponse, Response};
+use serde::{Deserialize, Serialize};
+
+/// Base of the problem `type` URIs.
+pub const PROBLEM_BASE: &str = "https://trapwise.invalid/problems/";
+
+/// An RFC 9457 problem document as sent on the wire.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, utoipa::ToSchema)]
+pub struct Problem {
+    /// `https://trapwise.invalid/problems/<code>`.
+    #[serde(rename = "type")]
+    pub type_uri: String,
+    /// Short summary, the same for every occurrence of the code.
+    pub title: String,
+    /// HTTP status code.
+    pub status: u16,
+    /// This occurrence, naming the field, line, column or byte offset at fault.
+    pub detail: String,
+    /// The kebab-case code (the last segment of `type`).
+    pub code: String,
+    /// The form field or query parameter at fault, when there is one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub field: Option<String>,
+}
+
+/// Every failure of a request.
+#[derive(Debug, thiserror::Error)]
+pub enum AppError {
+    /// Malformed input (400): a form, query, setting or file that cannot be read.
+    #[error("{detail}")]
+    BadRequest {
+        /// Kebab-case problem code.
+        code: &'static str,
+        /// This occurrence.
+        detail: String,
+        /// The field at fault.
+        field: Option<String>,
+    },
+    /// No token where one is required, or a token that is unknown or revoked (401).
+    #[error("{detail}")]
+    Unauthorized {
+        /// `token-required` or `bad-token`.
+        code: &'static str,
+        /// This occurrence.
+        detail: String,
+    },
+    /// No such resource for this lab (404).
+    #[error("{detail}")]
+    NotFound {
+        /// This occurrence.
+        detail: String,
+    },
+    /// The upload is larger than the configured limit (413).
+    #[error("the upload is larger than the limit of {limit_bytes} bytes; {hint}")]
+    TooLarge {
+        /// The configured limit.
+        limit_bytes: u64,
+        /// What to do.
+        hint: &'static str,
+    },
+    /// A content type or file format the service does not read (415).
+    #[error("{detail}")]
+    UnsupportedMediaType {
+        /// Kebab-case problem code.
+        code: &'static str,
+        /// This occurrence.
+        detail: String,
+        /// The field at fault.
+        field: Option<String>,
+    },
+    /// Data that parse but cannot be calibrated (422).
+    #[error("{detail}")]
+    Unprocessable {
+        /// Kebab-case problem code.
+        code: &'static str,
+        /// This occurrence.
+        detail: String,
+        /// The field at fault.
+        field: Option<String>,
+    },
+    /// All calibration slots and the queue are taken (503 with Retry-After).
+    #[error(
+        "all {capacity} calibration slots and queue places are taken; retry after {retry_after_s} s"
+    )]
+    Busy {
+        /// Running plus waiting calibrations allowed.
+        capacity: usize,
+        /// Seconds the client should wait.
+        retry_after_s: u64,
+    },
+    /// The database cannot be reached (503).
+    #[error("the database is not available; retry later")]
+    Unavailable {
+        /// The internal reason, logged and not sent.
+        reason: String,
+    },
+    /// Anything else (500); the reason is logged, not sent.
+    #[error("internal error")]
+    Internal {
+        /// The internal reason, logged and not sent.
+        reason: String,
+    },
+}
+
+impl AppError {
+    /// A 400 with a field.
+    pub fn bad_field(code: &'static str, field: &str, detail: impl Into<String>) -> Self {
+        AppError::BadRequest {
+            code,
+            detail: detail.into(),
+            field: Some(field.to_string()),
+        }
+    }
+
+    /// A 500 whose reason is logged.
+    pub fn internal(reason: impl std::fmt::Display) -> Self {
+        AppError::Internal {
+            reason: reason.to_string(),
+        }
+    }
+
+    /// The HTTP status.
+    pub fn status(&self) -> StatusCode {
+        match self {
+            AppError::BadRequest { .. } => StatusCode::BAD_REQUEST,
+            AppError::Unauthorized { .. } => StatusCode::UNAUTHORIZED,
+            AppError::NotFound { .. } => StatusCode::NOT_FOUND,
+            AppError::TooLarge { .. } => StatusCode::PAYLOAD_TOO_LARGE,
+            AppError::UnsupportedMediaType { .. } => StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            AppError::Unprocessable { .. } => StatusCode::UNPROCESSABLE_ENTITY,
+            AppError::Busy { .. } | AppError::Unavailable { .. } => StatusCode::SERVICE_UNAVAILABLE,
+            AppError::Internal { .. } => StatusCode::INTERNAL_SERVER_ERROR,
+        }
+    }
+
+    /// The kebab-case problem code.
+    pub fn code(&self) -> &'static str {
+        match self {
+            AppError::BadRequest { code, .. }
+            | AppError::Unauthorized { code, .. }
+            | AppError::UnsupportedMediaType { code, .. }
+            | AppError::Unprocessable { code, .. } => code,
+            AppError::NotFound { .. } => "not-found",
+            AppError::TooLarge { .. } => "upload-too-large",
+            AppError::Busy { .. } => "busy",
+            AppError::Unavailable { .. } => "database-unavailable",
+            AppError::Internal { .. } => "internal",
+        }
+    }
+
+    fn title(&self) -> &'static str {
+        match self {
+            AppError::BadRequest { .. } => "malformed input",
+            AppError::Unauthorized { .. } => "missing or invalid bearer token",
+            AppError::NotFound { .. } => "not found",
+            AppError::TooLarge { .. } => "upload too large",
+            AppError::UnsupportedMediaType { .. } => "unsupported content type or file format",
+            AppError::Unprocessable { .. } => "recording cannot be calibrated",
+            AppError::Busy { .. } => "calibration queue full",
+            AppError::Unavailable { .. } => "database unavailable",
+            AppError::Internal { .. } => "internal error",
+        }
+    }
+
+    fn field(&self) -> Option<String> {
+        match self {
+            AppError::BadRequest { field, .. }
+            | AppError::UnsupportedMediaType { field, .. }
+            | AppError::Unprocessable { field, .. } => field.clone(),
+            _ => None,
+        }
+    }
+
+    /// The problem document.
+    pub fn problem(&self) -> Problem {
+        Problem {
+            type_uri: format!("{PROBLEM_BASE}{}", self.code()),
+            title: self.title().to_string(),
+            status: self.status().as_u16(),
+            detail: self.to_string(),
+            code: self.code().to_string(),
+            field: self.field(),
+        }
+    }
+}
+
+impl IntoResponse for AppError {
+    fn into_response(self) -> Response {
+        match &self {
+            AppError::Internal { reason } | AppError::Unavailable { reason } => {
+                tracing::error!(code = self.code(), %reason, "request failed");
+            }
+            _ => tracing::debug!(code = self.code(), detail = %self, "request rejected"),
+        }
+        let body = serde_json::to_string(&self.problem()).unwrap_or_else(|_| "{}".into());
+        let mut response = (self.status(), body).into_response();
+        let headers = response.headers_mut();
+        headers.insert(
+            header::CONTENT_TYPE,
+            HeaderValue::from_static("application/problem+json"),
+        );
+        match &self {
+            AppError::Busy { retry_after_s, .. } => {
+                headers.insert(header::RETRY_AFTER, HeaderValue::from(*retry_after_s));
+            }
+            AppError::Unauthorized { .. } => {
+                headers.insert(
+                    header::WWW_AUTHENTICATE,
+                    HeaderValue::from_static("Bearer realm=\"trapwise\""),
+                );
+            }
+            _ => {}
+        }
+        response
+    }
+}
+
+impl From<StoreError> for AppError {
+    fn from(e: StoreError) -> Self {
+        match e {
+            StoreError::Database(sqlx::Error::PoolTimedOut | sqlx::Error::Io(_)) => {
+                AppError::Unavailable {
+                    reason: e.to_string(),
+                }
+            }
+            other => AppError::internal(other),
+        }
+    }
+}
+
+/// The 422 codes among ingest errors: the file is well formed but its samples cannot be
+/// calibrated (too few, or time stamps that are not a uniform increasing grid).
+fn ingest_is_unprocessable(e: &IngestError) -> bool {
+    matches!(
+        e,
+        IngestError::TooFewSamples { .. }
+            | IngestError::TimeNotIncreasing { .. }
+            | IngestError::TimeStepNotUniform { .. }
+    )
+}
+
+/// The run-settings key an ingest error is about, when it is one.
+fn ingest_field(e: &IngestError) -> Option<&'static str> {
+    match e {
+        IngestError::SampleRateMissing { .. }
+        | IngestError::SampleRateInvalid { .. }
+        | IngestError::SampleRateConflict { .. } => Some("sample_rate_hz"),
+        IngestError::ToleranceInvalid { .. } => Some("time_tolerance"),
+        IngestError::ChannelsInvalid { .. } => Some("channels"),
+        IngestError::VoltsPerCountMissing { .. }
+        | IngestError::VoltsPerCountInvalid { .. }
+        | IngestError::VoltsPerCountUnitConflict { .. } => Some("volts_per_count"),
+        IngestError::UnitRequired { .. } | IngestError::UnitConflict { .. } => Some("units"),
+        _ => None,
+    }
+}
+
+fn calibration_code(e: &CalibrationError) -> (&'static str, Option<String>) {
+    match e {
+        CalibrationError::InvalidCondition { field, .. } => {
+            ("invalid-condition", Some((*field).to_string()))
+        }
+        CalibrationError::Water(_) => ("viscosity-unavailable", Some("temperature_c".into())),
+        CalibrationError::Drag(_) => ("wall-correction-undefined", Some("height_um".into())),
+        CalibrationError::NoAxes => ("no-axes", None),
+        CalibrationError::Spectrum { .. } => ("spectrum-fit-failed", None),
+        CalibrationError::TooShort { .. } => ("too-short", None),
+        CalibrationError::Autocorrelation { .. } => ("autocorrelation-fit-failed", None),
+        CalibrationError::Equipartition { .. } => ("equipartition-failed", None),
+        CalibrationError::ConstantSignal { .. } => ("constant-signal", None),
+    }
+}
+
+impl From<SettingsError> for AppError {
+    fn from(e: SettingsError) -> Self {
+        let (code, field) = match &e {
+            SettingsError::UnknownKey { key, .. } => ("unknown-field", key.clone()),
+            SettingsError::BadValue { key, .. } => ("invalid-field", key.clone()),
+            SettingsError::Missing { key, .. } => ("missing-field", (*key).to_string()),
+        };
+        AppError::bad_field(code, &field, e.to_string())
+    }
+}
+
+impl From<PipelineError> for AppError {
+    fn from(e: PipelineError) -> Self {
+        match e {
+            PipelineError::Settings(s) => s.into(),
+            PipelineError::Ingest(i) => {
+                let field = ingest_field(&i).map(str::to_string);
+                if i.is_unsupported_format() {
+                    AppError::UnsupportedMediaType {
+                        code: i.kind(),
+                        detail: i.to_string(),
+                        field,
+                    }
+                } else if ingest_is_unprocessable(&i) {
+                    AppError::Unprocessable {
+                        code: i.kind(),
+                        detail: i.to_string(),
+                        field,
+                    }
+                } else {
+                    AppError::BadRequest {
+                        code: i.kind(),
+                        detail: i.to_string(),
+                        field,
+                    }
+                }
+            }
+            PipelineError::Calibration(c) => {
+                let (code, field) = calibration_code(&c);
+                AppError::Unprocessable {
+                    code,
+                    detail: c.to_string(),
+                    field,
+                }
+            }
+        }
+    }
+}

@@ -1,0 +1,189 @@
+//! The JSON documents of the API (other than the engine's `CalibrationReport`, reused as is)
+//! and their conversion from stored rows.
+//!
+//! A calibration document is `{id, created_at_ms, instrument, trap, note, axes_labels, links,
+//! result}` where `result` is the engine's report (schema `trapwise.calibration/1`) without
+//! plot arrays, byte-for-byte the numbers `trapwise calibrate --json --no-plots` prints.
+
+use super::problem::AppError;
+use crate::report::{AcfPlot, CalibrationReport, HistogramPlot, SpectrumPlot, ValueSe};
+use crate::store::StoredCalibration;
+use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
+
+/// The API prefix.
+pub const API: &str = "/api/v1";
+
+/// Links of a calibration.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct Links {
+    /// This document.
+    #[serde(rename = "self")]
+    pub self_: String,
+    /// The raw upload, byte-identical.
+    pub recording: String,
+    /// Spectrum, autocorrelation and histogram arrays.
+    pub plots: String,
+    /// The history of this calibration's trap.
+    pub history: String,
+}
+
+/// One stored calibration.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct CalibrationDocument {
+    /// UUID v7 (time-ordered).
+    pub id: String,
+    /// When the calibration was stored, milliseconds since the Unix epoch.
+    pub created_at_ms: i64,
+    pub instrument: String,
+    pub trap: String,
+    pub note: String,
+    /// Axis names as labelled by the uploader (may be empty).
+    pub axes_labels: Vec<String>,
+    pub links: Links,
+    /// The engine's calibration report, schema `trapwise.calibration/1`, without plot arrays.
+    #[schema(value_type = Object)]
+    pub result: CalibrationReport,
+}
+
+/// A page of calibrations, newest first.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct CalibrationPage {
+    pub items: Vec<CalibrationDocument>,
+    /// Opaque cursor for the next page, absent on the last page.
+    pub next_cursor: Option<String>,
+    /// The URL of the next page, absent on the last page.
+    pub next: Option<String>,
+}
+
+/// Plot arrays of one axis.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct AxisPlots {
+    pub axis: String,
+    /// Blocked one-sided spectrum and fitted model (unit^2/Hz), residuals in standard errors.
+    #[schema(value_type = Object)]
+    pub spectrum: SpectrumPlot,
+    /// Autocovariance (unit^2) against lag (s) with the fitted exponential.
+    #[schema(value_type = Object)]
+    pub autocorrelation: AcfPlot,
+    /// Position histogram with the equipartition Gaussian.
+    #[schema(value_type = Object)]
+    pub histogram: HistogramPlot,
+}
+
+/// Plot arrays of a calibration.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct PlotsDocument {
+    pub calibration_id: String,
+    pub axes: Vec<AxisPlots>,
+}
+
+/// A value with its standard error.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct ValueWithSe {
+    pub value: f64,
+    pub se: f64,
+}
+
+impl From<ValueSe> for ValueWithSe {
+    fn from(v: ValueSe) -> Self {
+        ValueWithSe {
+            value: v.value,
+            se: v.se,
+        }
+    }
+}
+
+/// One calibration of one axis in a trap's history.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct HistoryPoint {
+    pub calibration_id: String,
+    pub created_at_ms: i64,
+    /// Consensus stiffness kappa, pN/nm.
+    pub stiffness_pn_per_nm: ValueWithSe,
+    /// Detector sensitivity beta, nm/V; null for nanometre recordings.
+    pub sensitivity_nm_per_v: Option<ValueWithSe>,
+    /// Corner frequency fc, Hz.
+    pub corner_frequency_hz: ValueWithSe,
+    /// `consistent` or `inconsistent`.
+    pub verdict: String,
+}
+
+/// The history of one axis.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct AxisHistory {
+    pub axis: String,
+    /// Oldest first.
+    pub points: Vec<HistoryPoint>,
+}
+
+/// The history of one trap: kappa, beta and fc per axis over time.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct TrapHistory {
+    pub instrument: String,
+    pub trap: String,
+    pub axes: Vec<AxisHistory>,
+}
+
+/// The health check's answer.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct Health {
+    /// `ok`.
+    pub status: String,
+    /// `sqlite` or `postgres`.
+    pub database: String,
+}
+
+/// Percent-encodes one path segment (RFC 3986 section 2: unreserved characters stay).
+pub fn encode_segment(s: &str) -> String {
+    let mut out = String::with_capacity(s.len());
+    for b in s.bytes() {
+        if b.is_ascii_alphanumeric() || matches!(b, b'-' | b'.' | b'_' | b'~') {
+            out.push(char::from(b));
+        } else {
+            out.push_str(&format!("%{b:02X}"));
+        }
+    }
+    out
+}
+
+/// The history URL of a trap.
+pub fn history_url(instrument: &str, trap: &str) -> String {
+    format!(
+        "{API}/instruments/{}/traps/{}/history",
+        encode_segment(instrument),
+        encode_segment(trap)
+    )
+}
+
+/// Parses a stored report.
+pub fn stored_report(row: &StoredCalibration) -> Result<CalibrationReport, AppError> {
+    serde_json::from_str(&row.result_json).map_err(|e| {
+        AppError::internal(format!(
+            "stored calibration {}: result_json does not decode: {e}",
+            row.id
+        ))
+    })
+}
+
+impl CalibrationDocument {
+    /// The document of a stored row.
+    pub fn from_stored(row: &StoredCalibration) -> Result<Self, AppError> {
+        let base = format!("{API}/calibrations/{}", row.id);
+        Ok(CalibrationDocument {
+            id: row.id.clone(),
+            created_at_ms: row.created_at_ms,
+            instrument: row.instrument.clone(),
+            trap: row.trap.clone(),
+            note: row.note.clone(),
+            axes_labels: row.axes_labels.clone(),
+            links: Links {
+                recording: format!("{base}/recording"),
+                plots: format!("{base}/plots"),
+                history: history_url(&row.instrument, &row.trap),
+                self_: base,
+            },
+            result: stored_report(row)?,
+        })
+    }
+}
