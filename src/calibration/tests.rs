@@ -384,3 +384,27 @@ fn white_detection_noise_fails_the_spectral_fit_and_the_methods_disagree() {
     assert!(codes.contains(&"poor-spectral-fit"), "{codes:?}");
     assert_eq!(axis.verdict, Verdict::Inconsistent);
 }
+
+#[test]
+fn long_records_averaged_over_segments_keep_unbiased_estimates_and_honest_errors() {
+    // 2^19 samples are analysed as two periodogram segments by default; the statistics must be
+    // as good as for a single segment.
+    let seeds = 40;
+    let (mut psd, mut acf, mut eq, mut cons) =
+        (Spread::new(), Spread::new(), Spread::new(), Spread::new());
+    for seed in 0..seeds {
+        let rec = record(90_000 + seed, 1 << 19, None, &Disturbances::default());
+        let cal = calibrate(&rec, &conditions(), &AnalysisOptions::default()).expect("calibrates");
+        let axis = &cal.axes[0];
+        assert_eq!(axis.n_windows, 2);
+        let s = &axis.stiffness_pn_per_nm;
+        psd.push(s.psd);
+        acf.push(s.acf);
+        eq.push(s.equipartition);
+        cons.push(s.consensus);
+    }
+    check_unbiased_and_honest("psd", &psd, KAPPA_PN_PER_NM);
+    check_unbiased_and_honest("acf", &acf, KAPPA_PN_PER_NM);
+    check_unbiased_and_honest("equipartition", &eq, KAPPA_PN_PER_NM);
+    check_unbiased_and_honest("consensus", &cons, KAPPA_PN_PER_NM);
+}
