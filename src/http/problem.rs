@@ -276,10 +276,22 @@ fn ingest_field(e: &IngestError) -> Option<&'static str> {
     }
 }
 
+/// The request field of a run condition named in SI by the calibration core.
+fn request_key(core_field: &'static str) -> &'static str {
+    match core_field {
+        "bead_diameter_m" => "bead_diameter_um",
+        "bead_diameter_se_m" => "bead_diameter_se_um",
+        "height_m" => "height_um",
+        "height_se_m" => "height_se_um",
+        "viscosity_pa_s" => "viscosity_mpa_s",
+        other => other,
+    }
+}
+
 fn calibration_code(e: &CalibrationError) -> (&'static str, Option<String>) {
     match e {
         CalibrationError::InvalidCondition { field, .. } => {
-            ("invalid-condition", Some((*field).to_string()))
+            ("invalid-condition", Some(request_key(field).to_string()))
         }
         CalibrationError::Water(_) => ("viscosity-unavailable", Some("temperature_c".into())),
         CalibrationError::Drag(_) => ("wall-correction-undefined", Some("height_um".into())),
@@ -330,9 +342,23 @@ impl From<PipelineError> for AppError {
             }
             PipelineError::Calibration(c) => {
                 let (code, field) = calibration_code(&c);
+                // The core names conditions in SI; say which request field to change.
+                let detail = match (&c, &field) {
+                    (
+                        CalibrationError::InvalidCondition {
+                            field: core,
+                            reason,
+                            ..
+                        },
+                        Some(key),
+                    ) if *core != key.as_str() => {
+                        format!("field `{key}`: {reason} ({c})")
+                    }
+                    _ => c.to_string(),
+                };
                 AppError::Unprocessable {
                     code,
-                    detail: c.to_string(),
+                    detail,
                     field,
                 }
             }

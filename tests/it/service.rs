@@ -518,6 +518,36 @@ fn bad_cases(good_csv: &[u8]) -> Vec<BadCase> {
             "250",
         ),
         case(
+            "negative bead diameter",
+            "run.csv",
+            good_csv,
+            with(&[("bead_diameter_um", "-1")]),
+            422,
+            "invalid-condition",
+            Some("bead_diameter_um"),
+            "positive",
+        ),
+        case(
+            "npy without a sample rate",
+            "one.npy",
+            &npy_f8(2000),
+            with(&[("units", "nm")]),
+            400,
+            "sample-rate-missing",
+            Some("sample_rate_hz"),
+            "sample rate",
+        ),
+        case(
+            "time going backwards",
+            "run.csv",
+            &csv_backwards(1100),
+            conditions(),
+            422,
+            "time-not-increasing",
+            None,
+            "line",
+        ),
+        case(
             "axis labels do not match",
             "run.csv",
             good_csv,
@@ -530,10 +560,26 @@ fn bad_cases(good_csv: &[u8]) -> Vec<BadCase> {
     ]
 }
 
-/// A complex128 .npy of 300 zeros, bytes as written by numpy.save (header format of NEP 1).
+/// A complex128 .npy of 300 zeros, laid out as numpy.save writes it (NumPy enhancement
+/// proposal 1: magic, version 1.0, little-endian header length, header padded to 64 bytes).
 fn npy_complex() -> Vec<u8> {
-    let header = "{'descr': '<c16', 'fortran_order': False, 'shape': (300,), }";
-    let mut padded = header.to_string();
+    let mut bytes = npy_header("<c16", 300);
+    bytes.extend(std::iter::repeat_n(0u8, 300 * 16));
+    bytes
+}
+
+/// A float64 .npy of `n` samples of a sawtooth, in the same layout.
+fn npy_f8(n: usize) -> Vec<u8> {
+    let mut bytes = npy_header("<f8", n);
+    for i in 0..n {
+        bytes.extend_from_slice(&((i % 13) as f64).to_le_bytes());
+    }
+    bytes
+}
+
+/// The magic, version 1.0 and padded header of a one-dimensional .npy.
+fn npy_header(descr: &str, n: usize) -> Vec<u8> {
+    let mut padded = format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': ({n},), }}");
     while (10 + padded.len() + 1) % 64 != 0 {
         padded.push(' ');
     }
@@ -541,8 +587,17 @@ fn npy_complex() -> Vec<u8> {
     let mut bytes = b"\x93NUMPY\x01\x00".to_vec();
     bytes.extend_from_slice(&u16::try_from(padded.len()).unwrap_or(0).to_le_bytes());
     bytes.extend_from_slice(padded.as_bytes());
-    bytes.extend(std::iter::repeat_n(0u8, 300 * 16));
     bytes
+}
+
+/// A CSV whose time column steps back once, at row 700.
+fn csv_backwards(n_rows: usize) -> Vec<u8> {
+    let mut text = String::from("time_s,x_nm\n");
+    for i in 0..n_rows {
+        let t = if i == 700 { 0.0 } else { i as f64 * 1e-4 };
+        text.push_str(&format!("{t},{}\n", (i % 7) as f64 - 3.0));
+    }
+    text.into_bytes()
 }
 
 #[track_caller]
