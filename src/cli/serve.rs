@@ -99,6 +99,7 @@ pub(super) fn run(args: &ServeArgs) -> Result<u8, Failure> {
             max_concurrent: config.max_concurrent,
             queue: config.queue,
             tokens_required: config.tokens_required(),
+            upload_idle_s: config.upload_idle_s,
         };
         let listener = tokio::net::TcpListener::bind(config.bind)
             .await

@@ -997,6 +997,55 @@ async fn shutdown_finishes_an_upload_in_flight(backend: Backend) {
     restarted.stop().await;
 }
 
+async fn a_stalled_upload_is_408_and_stores_nothing(backend: Backend) {
+    let db = TestDb::new(backend).await;
+    let impatient = ServiceOptions {
+        upload_idle_s: 1,
+        ..options()
+    };
+    let server = TestServer::start(&db, impatient).await;
+    let before = counts(&server).await;
+    let (_hold_tx, hold_rx) = tokio::sync::oneshot::channel::<()>();
+    // One chunk, then silence until the test ends.
+    let body = futures_util::stream::unfold((0, Some(hold_rx)), |(step, hold)| async move {
+        match step {
+            0 => Some((
+                Ok::<_, std::io::Error>(b"time_s,x_nm\n0,1\n".to_vec()),
+                (1, hold),
+            )),
+            _ => {
+                if let Some(rx) = hold {
+                    let _ = rx.await;
+                }
+                None
+            }
+        }
+    });
+    let response =
+        server
+            .client
+            .post(server.url(
+                "/api/v1/calibrations?instrument=a&trap=b&bead_diameter_um=1&temperature_c=25",
+            ))
+            .header("content-type", "text/csv")
+            .body(reqwest::Body::wrap_stream(body))
+            .send()
+            .await
+            .expect("stalled upload");
+    assert_eq!(response.status().as_u16(), 408);
+    let problem: Value = response.json().await.expect("problem");
+    assert_eq!(problem["code"], "upload-stalled");
+    assert!(
+        problem["detail"]
+            .as_str()
+            .unwrap_or("")
+            .contains("byte offset 16"),
+        "{problem}"
+    );
+    assert_eq!(counts(&server).await, before);
+    server.stop().await;
+}
+
 async fn a_full_queue_answers_503_with_retry_after(backend: Backend) {
     let db = TestDb::new(backend).await;
     let dir = tempfile::tempdir().expect("temporary folder");
@@ -1230,6 +1279,7 @@ on_both_backends!(
     tokens_confine_each_lab_to_its_own_calibrations,
     a_restarted_service_still_serves_every_calibration,
     a_full_queue_answers_503_with_retry_after,
+    a_stalled_upload_is_408_and_stores_nothing,
     shutdown_finishes_an_upload_in_flight,
     health_metrics_openapi_and_page_are_served,
     upload_subcommand_prints_what_calibrate_prints,
