@@ -115,6 +115,15 @@ pub(super) fn run(args: &ServeArgs) -> Result<u8, Failure> {
             "trapwise listening on http://{}/",
             config.bind
         );
+        if options.tokens_required {
+            let tokens = store.tokens().await.map_err(|e| Failure::new(1, e))?;
+            if tokens.iter().all(|t| t.revoked_at_ms.is_some()) {
+                tracing::warn!(
+                    "tokens are required but none is active: every API request will be refused; \
+                     create one with `trapwise token create --lab NAME`"
+                );
+            }
+        }
         let state = AppState::new(store.clone(), options);
         http::serve(listener, state, shutdown_signal())
             .await
