@@ -2,6 +2,7 @@
 //! bad input gets a message naming the place and the documented exit code, and the messages are
 //! pinned by a snapshot (set TRAPWISE_UPDATE_SNAPSHOTS=1 to rewrite it after a deliberate change).
 
+use crate::support::check_snapshot;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
 
@@ -392,27 +393,6 @@ fn every_kind_of_bad_input_gets_a_located_message_and_its_exit_code() {
         ));
     }
     check_snapshot("cli_errors.txt", &snapshot);
-}
-
-fn check_snapshot(name: &str, actual: &str) {
-    let path = Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("tests/it/snapshots")
-        .join(name);
-    if std::env::var_os("TRAPWISE_UPDATE_SNAPSHOTS").is_some() {
-        std::fs::create_dir_all(path.parent().expect("parent")).expect("mkdir");
-        std::fs::write(&path, actual).expect("write snapshot");
-        return;
-    }
-    let expected = std::fs::read_to_string(&path).unwrap_or_else(|_| {
-        panic!(
-            "missing snapshot {}; run with TRAPWISE_UPDATE_SNAPSHOTS=1",
-            path.display()
-        )
-    });
-    assert_eq!(
-        actual, expected,
-        "snapshot {name} changed; rerun with TRAPWISE_UPDATE_SNAPSHOTS=1 if intended"
-    );
 }
 
 #[test]
