@@ -7,10 +7,10 @@
 //! complement i16 are decoded with the standard library's `from_le_bytes`.
 
 use super::{
-    Format, IngestError, IngestOptions, MIN_SAMPLES, axis_name, finish, integer_scale,
+    Format, IngestError, IngestOptions, MIN_SAMPLES, finish_unlabelled, integer_scale,
     required_rate, required_unit,
 };
-use crate::recording::{AxisTrace, Recording};
+use crate::recording::Recording;
 
 /// Reads a raw little-endian file of the given raw format.
 pub(super) fn parse_raw(
@@ -67,15 +67,7 @@ pub(super) fn parse_raw(
             axis.push(value);
         }
     }
-    let axes = axes
-        .into_iter()
-        .enumerate()
-        .map(|(axis_idx, samples)| AxisTrace {
-            name: axis_name(axis_idx),
-            samples,
-        })
-        .collect();
-    finish(file, sample_rate_hz, unit, axes)
+    finish_unlabelled(file, sample_rate_hz, unit, axes)
 }
 
 /// Decodes a little-endian binary32 (NaN if the slice is not 4 bytes, which callers prevent).

@@ -339,6 +339,24 @@ fn axis_name(axis_idx: usize) -> String {
         .map_or_else(|| format!("axis{axis_idx}"), |name| (*name).to_string())
 }
 
+/// Names unlabelled columns `x`, `y`, `z` in order and assembles the recording (see `finish`).
+fn finish_unlabelled(
+    file: &str,
+    sample_rate_hz: f64,
+    unit: PositionUnit,
+    columns: Vec<Vec<f64>>,
+) -> Result<Recording, IngestError> {
+    let axes = columns
+        .into_iter()
+        .enumerate()
+        .map(|(axis_idx, samples)| AxisTrace {
+            name: axis_name(axis_idx),
+            samples,
+        })
+        .collect();
+    finish(file, sample_rate_hz, unit, axes)
+}
+
 /// Assembles the final recording after checking the sample count.
 fn finish(
     file: &str,

@@ -15,10 +15,10 @@
 //! is given without a volts per count. The sample rate always comes from the options.
 
 use super::{
-    Format, IngestError, IngestOptions, MIN_SAMPLES, NPY_MAGIC, axis_name, finish, integer_scale,
+    Format, IngestError, IngestOptions, MIN_SAMPLES, NPY_MAGIC, finish_unlabelled, integer_scale,
     required_rate, required_unit,
 };
-use crate::recording::{AxisTrace, Recording};
+use crate::recording::Recording;
 
 /// A supported element type.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -255,15 +255,7 @@ pub(super) fn parse_npy(
             *slot = value;
         }
     }
-    let axes = axes
-        .into_iter()
-        .enumerate()
-        .map(|(axis_idx, samples)| AxisTrace {
-            name: axis_name(axis_idx),
-            samples,
-        })
-        .collect();
-    finish(file, sample_rate_hz, unit, axes)
+    finish_unlabelled(file, sample_rate_hz, unit, axes)
 }
 
 /// Writes a shape as a Python tuple: `(5,)`, `(5, 3)`, `()`.

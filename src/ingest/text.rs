@@ -20,8 +20,8 @@
 //! data cells are never quoted, and LF line ends are accepted as well as CRLF.
 
 use super::{
-    Format, IngestError, IngestOptions, MIN_SAMPLES, SNIFF_BYTES, axis_name, check_rate, finish,
-    required_rate, required_unit,
+    Format, IngestError, IngestOptions, MIN_SAMPLES, SNIFF_BYTES, check_rate, finish,
+    finish_unlabelled, required_rate, required_unit,
 };
 use crate::recording::{AxisTrace, PositionUnit, Recording};
 
@@ -208,15 +208,7 @@ fn parse_columns(
     let unit = required_unit(file, Format::Columns.name(), options)?;
     let sample_rate_hz = required_rate(file, Format::Columns, options)?;
     let columns = scan_rows(file, cursor, n_cols, sep, "first row")?;
-    let axes = columns
-        .into_iter()
-        .enumerate()
-        .map(|(axis_idx, samples)| AxisTrace {
-            name: axis_name(axis_idx),
-            samples,
-        })
-        .collect();
-    finish(file, sample_rate_hz, unit, axes)
+    finish_unlabelled(file, sample_rate_hz, unit, columns)
 }
 
 /// Reads a CSV or TSV table with a header row.
