@@ -81,7 +81,9 @@ function fmt(v, digits = 4) {
   if (v === 0) return "0";
   const a = Math.abs(v);
   if (a >= 1e6 || a < 1e-4) return v.toExponential(digits - 1).replace("e+", "e");
-  return v.toPrecision(digits).replace("e+", "e");
+  // toPrecision writes 20000 as 2.000e+4: whole numbers below a million are written out.
+  if (a >= 10 ** digits) return v.toFixed(0);
+  return v.toPrecision(digits);
 }
 
 function fmtDate(ms) {
@@ -411,13 +413,29 @@ function linearTicks(lo, hi, target = 5) {
   return ticks;
 }
 
+/** Decade ticks 10^k labelled as powers; over three decades or less also 2 and 5 times them. */
 function logTicks(lo, hi) {
   const ticks = [];
-  const a = Math.ceil(Math.log10(lo) - 1e-9);
-  const b = Math.floor(Math.log10(hi) + 1e-9);
+  const a = Math.floor(Math.log10(lo));
+  const b = Math.ceil(Math.log10(hi));
   const every = Math.max(1, Math.ceil((b - a + 1) / 7));
-  for (let k = a; k <= b; k += every) ticks.push(k);
+  const minor = b - a <= 3;
+  for (let k = a; k <= b; k += every) {
+    for (const m of minor ? [1, 2, 5] : [1]) {
+      const v = m * 10 ** k;
+      if (v >= lo * (1 - 1e-9) && v <= hi * (1 + 1e-9)) ticks.push({ v, text: m === 1 ? powerOfTen(k) : `${m}·${powerOfTen(k)}` });
+    }
+  }
   return ticks;
+}
+
+/** Labels for linear ticks with the decimals their spacing needs. */
+function linearLabel(step) {
+  if (!(step > 0)) return (v) => fmt(v, 3);
+  const exp = Math.floor(Math.log10(step));
+  if (exp >= 6 || exp < -4) return (v) => fmt(v, 3);
+  const decimals = Math.max(0, -exp);
+  return (v) => v.toFixed(decimals);
 }
 
 /** [min, max] of the finite (and, for log axes, positive) values. */
@@ -469,9 +487,14 @@ function chart({ width = 560, height = 300, x, y, label, margin = {} }) {
   const grid = svg("g", { class: "grid" });
   const axes = svg("g", { class: "axes" });
   const tickSet = (axis) => {
-    if (axis.ticks) return axis.ticks.map((t) => ({ v: t, text: (axis.tickFormat || fmt)(t) }));
-    if (axis.log) return logTicks(...axis.domain).map((k) => ({ v: 10 ** k, text: powerOfTen(k) }));
-    return linearTicks(...axis.domain).map((t) => ({ v: t, text: (axis.tickFormat || ((v) => fmt(v, 3)))(t) }));
+    if (axis.ticks) {
+      const step = axis.ticks.length > 1 ? axis.ticks[1] - axis.ticks[0] : 0;
+      return axis.ticks.map((t) => ({ v: t, text: (axis.tickFormat || linearLabel(step))(t) }));
+    }
+    if (axis.log) return logTicks(...axis.domain);
+    const ticks = linearTicks(...axis.domain);
+    const label = axis.tickFormat || linearLabel(ticks.length > 1 ? ticks[1] - ticks[0] : 0);
+    return ticks.map((t) => ({ v: t, text: label(t) }));
   };
   for (const t of tickSet(x)) {
     const px = sx(t.v);
@@ -673,7 +696,7 @@ function verdictBadge(verdict) {
   const icon = ok
     ? svg("svg", { viewBox: "0 0 16 16", "aria-hidden": "true" }, svg("circle", { cx: 8, cy: 8, r: 7, fill: "none", stroke: "currentColor", "stroke-width": 2 }), svg("path", { d: "M4.5 8.3 L7 10.8 L11.6 5.6", fill: "none", stroke: "currentColor", "stroke-width": 2 }))
     : svg("svg", { viewBox: "0 0 16 16", "aria-hidden": "true" }, svg("path", { d: "M8 1 L15 14.5 H1 Z", fill: "none", stroke: "currentColor", "stroke-width": 1.8, "stroke-linejoin": "round" }), svg("path", { d: "M8 6 V10", stroke: "currentColor", "stroke-width": 2 }), svg("circle", { cx: 8, cy: 12.3, r: 1.1, fill: "currentColor" }));
-  const words = ok ? "Consistent: the three methods agree" : "Inconsistent: check before use";
+  const words = ok ? "Consistent: the estimates agree" : "Inconsistent: check before use";
   return el("span", { class: `verdict verdict-${ok ? "consistent" : "inconsistent"}`, "data-verdict": verdict }, icon, words);
 }
 
@@ -770,20 +793,23 @@ async function showResult(id) {
 // History view
 
 /**
- * The spread of recent runs before each point: mean ± 2 sample standard deviations of the
- * consensus stiffness of the SPREAD_RUNS runs before it (at least two). The idea is that of a
- * Shewhart individuals control chart (NIST/SEMATECH e-Handbook of Statistical Methods, section
- * 6.3.2, from memory, unverified); the window and the factor 2 are common practice, chosen for
- * a calm chart that still marks a realignment.
+ * The spread of recent runs at each point: mean ± 2 sqrt(s² + se²), where s is the sample
+ * standard deviation of the consensus stiffness over the SPREAD_RUNS runs before the point (at
+ * least three) and se the point's own standard error, so a run is marked only when it differs
+ * from the recent runs by more than their scatter and its own uncertainty explain. The idea is
+ * that of a Shewhart individuals control chart (NIST/SEMATECH e-Handbook of Statistical
+ * Methods, section 6.3, from memory, unverified); the window, the factor 2 and adding the
+ * run's own error are common practice, chosen for a calm chart that still marks a realignment.
  */
 function recentSpread(points) {
-  return points.map((_, i) => {
-    const window = points.slice(Math.max(0, i - SPREAD_RUNS), i).map((p) => p.stiffness_pn_per_nm.value);
-    if (window.length < 2) return null;
+  return points.map((p, i) => {
+    const window = points.slice(Math.max(0, i - SPREAD_RUNS), i).map((q) => q.stiffness_pn_per_nm.value);
+    if (window.length < 3) return null;
     const mean = window.reduce((a, b) => a + b, 0) / window.length;
     const variance = window.reduce((a, b) => a + (b - mean) ** 2, 0) / (window.length - 1);
-    const sd = Math.sqrt(variance);
-    return { mean, lo: mean - 2 * sd, hi: mean + 2 * sd };
+    const se = p.stiffness_pn_per_nm.se;
+    const half = 2 * Math.sqrt(variance + (Number.isFinite(se) ? se * se : 0));
+    return { mean, lo: mean - half, hi: mean + half };
   });
 }
 
@@ -833,7 +859,7 @@ function historyFigure(instrument, trap, axisHistory) {
   });
   c.plot.append(g);
   return figure("history", axisHistory.axis, `Stiffness over time, axis ${axisHistory.axis}`, c.node,
-    legend([["bars", "run ± 1 SE (consistent)"], ["hollow", "run with an inconsistent verdict"], ["band", `spread of the ${SPREAD_RUNS} runs before (mean ± 2 SD)`], ["diamond", "outside that spread"]]));
+    legend([["bars", "run ± 1 SE (consistent)"], ["hollow", "run with an inconsistent verdict"], ["band", `spread of the ${SPREAD_RUNS} runs before (mean ± 2 SD, with the run's SE)`], ["diamond", "outside that spread"]]));
 }
 
 function kappaCell(axisReport) {

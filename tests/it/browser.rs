@@ -314,7 +314,11 @@ async fn api_json(server: &TestServer, path: &str) -> Value {
         .send()
         .await
         .expect("GET");
-    assert!(response.status().is_success(), "GET {path}: {}", response.status());
+    assert!(
+        response.status().is_success(),
+        "GET {path}: {}",
+        response.status()
+    );
     response.json().await.expect("JSON")
 }
 
@@ -397,13 +401,16 @@ fn check_number(what: &str, shown: &Value, api: &Value, scale: f64) {
         .unwrap_or_else(|| panic!("{what}: `{text}` is not `value ± se`"));
     let v: f64 = v.trim().parse().expect("shown value");
     let s: f64 = s.trim().parse().expect("shown standard error");
-    // Four significant digits for the value, two for its standard error.
+    // Four significant digits for the value (half a unit of the fourth digit is at most 5e-4
+    // of the value), two for its standard error (at most 5e-2); the tolerances leave room for
+    // the rounding of the decimal text.
+    let (value_shown_unit, se_shown_unit) = (value * scale, se * scale);
     assert!(
-        (v - value * scale).abs() <= 5e-4 * (value * scale).abs(),
+        (v - value_shown_unit).abs() <= 5.1e-4 * value_shown_unit.abs(),
         "{what}: shows {v}, API {value} x {scale}"
     );
     assert!(
-        (s - se * scale).abs() <= 5e-2 * (se * scale).abs(),
+        (s - se_shown_unit).abs() <= 5.1e-2 * se_shown_unit.abs(),
         "{what}: shows ± {s}, API {se} x {scale}"
     );
 }
@@ -535,7 +542,11 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
                 1.0,
             );
         } else {
-            assert!(q["sensitivity"].is_null(), "{}: beta shown for nm data", what("beta"));
+            assert!(
+                q["sensitivity"].is_null(),
+                "{}: beta shown for nm data",
+                what("beta")
+            );
         }
         assert_eq!(s["verdict"], axis["verdict"], "{}", what("verdict"));
         let words = s["verdict_text"].as_str().unwrap_or("");
@@ -544,7 +555,10 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
         } else {
             "Inconsistent"
         };
-        assert!(words.starts_with(expected_word), "verdict in words: {words}");
+        assert!(
+            words.starts_with(expected_word),
+            "verdict in words: {words}"
+        );
         let codes: Vec<Value> = axis["findings"]
             .as_array()
             .map(|f| f.iter().map(|x| x["code"].clone()).collect())
@@ -583,7 +597,11 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
         );
         check_count(&what("acf NaN marks"), &s["acf"]["broken"], 0);
         let h = &p["histogram"];
-        check_count(&what("histogram bars"), &s["histogram"]["bars"], len(&h["count"]));
+        check_count(
+            &what("histogram bars"),
+            &s["histogram"]["bars"],
+            len(&h["count"]),
+        );
         check_count(
             &what("histogram Gaussian"),
             &s["histogram"]["expected"],
@@ -605,7 +623,10 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
         let u2 = format!("{unit}²");
         let label_has = |plot: &str, i: usize, text: &str| {
             let label = s[plot]["labels"][i].as_str().unwrap_or("");
-            assert!(label.contains(text), "{plot} axis label `{label}` lacks `{text}`");
+            assert!(
+                label.contains(text),
+                "{plot} axis label `{label}` lacks `{text}`"
+            );
         };
         label_has("spectrum", 1, &format!("{u2}/Hz"));
         label_has("spectrum", 2, "Frequency (Hz)");
@@ -700,7 +721,10 @@ async fn upload_view_shows_the_laser_caution_without_scrolling_and_labels_every_
             "laser-safety officer",
             "no safety advice",
         ] {
-            assert!(text.contains(phrase), "{name}: caution lacks `{phrase}`: {text}");
+            assert!(
+                text.contains(phrase),
+                "{name}: caution lacks `{phrase}`: {text}"
+            );
         }
         browser.screenshot(name, false).await;
     }
@@ -721,7 +745,11 @@ async fn upload_view_shows_the_laser_caution_without_scrolling_and_labels_every_
             vec![],
         )
         .await;
-    assert_eq!(reached, Value::Bool(true), "the file input is not in the tab order");
+    assert_eq!(
+        reached,
+        Value::Bool(true),
+        "the file input is not in the tab order"
+    );
     browser.close().await;
     server.stop().await;
 }
@@ -733,14 +761,17 @@ async fn refused_uploads_show_the_service_problem_beside_the_field_or_file_conce
     let dir = tempfile::tempdir().expect("temporary folder");
     let good_csv = std::fs::read(simulated(dir.path(), "good.csv", "0.05,0.04", 3)).expect("csv");
     let bad_csv_path = dir.path().join("bad_cell.csv");
-    std::fs::write(&bad_csv_path, b"time_s,x_nm\n0,1.5\n0.00005,abc\n0.0001,2\n").expect("write");
+    std::fs::write(
+        &bad_csv_path,
+        b"time_s,x_nm\n0,1.5\n0.00005,abc\n0.0001,2\n",
+    )
+    .expect("write");
     let docx_path = dir.path().join("notes.docx");
     std::fs::write(&docx_path, b"PK\x03\x04 not a recording").expect("write");
     let good_path = dir.path().join("good.csv");
 
     let mut browser = Browser::start().await;
     browser.goto(&server.url("/")).await;
-    // (case, file, fields, the field whose message slot must show the problem)
     let base = [
         ("instrument", "bench-a"),
         ("trap", "t1"),
@@ -755,7 +786,9 @@ async fn refused_uploads_show_the_service_problem_beside_the_field_or_file_conce
             })
             .collect()
     };
-    let cases: Vec<(&str, Option<&Path>, Vec<(String, String)>, &str)> = vec![
+    // (case, file, fields, the field whose message slot must show the problem)
+    type Case<'a> = (&'a str, Option<&'a Path>, Vec<(String, String)>, &'a str);
+    let cases: Vec<Case<'_>> = vec![
         ("no-file", None, with(&[]), "file"),
         ("bad-cell", Some(&bad_csv_path), with(&[]), "file"),
         ("unknown-format", Some(&docx_path), with(&[]), "file"),
@@ -813,7 +846,10 @@ async fn refused_uploads_show_the_service_problem_beside_the_field_or_file_conce
         assert_eq!(shown[1], problem["code"], "{case}: problem code");
         assert_eq!(shown[2], "true", "{case}: the control is marked invalid");
         assert!(
-            shown[3].as_str().unwrap_or("").contains(&status.to_string()),
+            shown[3]
+                .as_str()
+                .unwrap_or("")
+                .contains(&status.to_string()),
             "{case}: the summary names the status: {}",
             shown[3]
         );
@@ -830,7 +866,9 @@ async fn refused_uploads_show_the_service_problem_beside_the_field_or_file_conce
     std::fs::write(&good_path, &good_csv).expect("write");
     browser.pick_file(&good_path).await;
     browser.submit().await;
-    browser.wait_for("the result after a good upload", RESULT_ID).await;
+    browser
+        .wait_for("the result after a good upload", RESULT_ID)
+        .await;
     browser.close().await;
     server.stop().await;
 }
@@ -847,7 +885,11 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     browser.goto(&server.url("/")).await;
 
     // 1. A CSV dropped onto the drop zone.
-    for (k, v) in [("instrument", "bench-a"), ("trap", "t1"), ("note", "after alignment")] {
+    for (k, v) in [
+        ("instrument", "bench-a"),
+        ("trap", "t1"),
+        ("note", "after alignment"),
+    ] {
         browser.set_field(k, v).await;
     }
     for (k, v) in csv.fields() {
@@ -856,7 +898,10 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     let text = String::from_utf8(csv.bytes()).expect("CSV is text");
     browser.drop_text_file(&csv.name(), &text).await;
     let chosen = browser
-        .js("return document.getElementById('file-name').textContent;", vec![])
+        .js(
+            "return document.getElementById('file-name').textContent;",
+            vec![],
+        )
         .await;
     assert!(
         chosen.as_str().unwrap_or("").starts_with("two_axes.csv"),
@@ -894,7 +939,12 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
 
     // 2. Volt data with three channels, picked with the file chooser: beta is shown.
     browser.goto(&server.url("/#/")).await;
-    browser.wait_for("the upload view", "return !document.getElementById('view-upload').hidden;").await;
+    browser
+        .wait_for(
+            "the upload view",
+            "return !document.getElementById('view-upload').hidden;",
+        )
+        .await;
     browser.open_more_settings().await;
     for (k, v) in volts.fields() {
         browser.set_field(&k, &v).await;
@@ -917,6 +967,16 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     let shown = browser.js(READ_RESULT, vec![]).await;
     check_result_view(&shown, &doc, &plots);
     browser.screenshot("result-volts-full", true).await;
+    browser
+        .js(
+            "document.querySelector('#view-result figure[data-plot=spectrum]').scrollIntoView();",
+            vec![],
+        )
+        .await;
+    browser.screenshot("result-volts-plots", false).await;
+    browser.viewport(TABLET).await;
+    browser.screenshot("result-volts-tablet", false).await;
+    browser.viewport(LAPTOP).await;
 
     // 3. The fields remember their last values across a reload.
     browser.goto(&server.url("/#/")).await;
@@ -987,8 +1047,12 @@ async fn history_and_overview_show_every_run_of_each_trap_and_open_their_results
             ("trap".to_string(), trap.to_string()),
         ];
         fields.extend(conditions.iter().cloned());
-        let (status, doc) =
-            api_upload(&server, &fields, Some((&name, std::fs::read(&path).expect("read")))).await;
+        let (status, doc) = api_upload(
+            &server,
+            &fields,
+            Some((&name, std::fs::read(&path).expect("read"))),
+        )
+        .await;
         assert_eq!(status, 201, "upload {name}: {doc}");
         runs.push(doc);
         // Distinct, increasing creation times.
@@ -1022,8 +1086,15 @@ async fn history_and_overview_show_every_run_of_each_trap_and_open_their_results
         ("bench-b", "left", 1, &runs[7]),
     ] {
         let row = &overview[instrument][trap];
-        assert!(row.is_object(), "overview lacks {instrument} {trap}: {overview}");
-        assert_eq!(row["runs"], json!(n_runs.to_string()), "{instrument} {trap} runs");
+        assert!(
+            row.is_object(),
+            "overview lacks {instrument} {trap}: {overview}"
+        );
+        assert_eq!(
+            row["runs"],
+            json!(n_runs.to_string()),
+            "{instrument} {trap} runs"
+        );
         let id = latest["id"].as_str().unwrap_or("");
         assert_eq!(row["latest"], json!(format!("#/calibrations/{id}")));
         for axis in latest["result"]["axes"].as_array().expect("axes") {
@@ -1074,7 +1145,10 @@ async fn history_and_overview_show_every_run_of_each_trap_and_open_their_results
     for axis in history["axes"].as_array().expect("history axes") {
         let name = axis["axis"].as_str().unwrap_or("");
         let points = axis["points"].as_array().expect("points");
-        let marks = drawn["axes"][name]["runs"].as_array().cloned().unwrap_or_default();
+        let marks = drawn["axes"][name]["runs"]
+            .as_array()
+            .cloned()
+            .unwrap_or_default();
         assert_eq!(marks.len(), points.len(), "axis {name}: one mark per run");
         assert_eq!(points.len(), 6, "axis {name}: runs of t1");
         for (mark, point) in marks.iter().zip(points) {
@@ -1084,7 +1158,11 @@ async fn history_and_overview_show_every_run_of_each_trap_and_open_their_results
                 f64_of(&point["stiffness_pn_per_nm"]["value"], name)
             );
         }
-        check_count(&format!("axis {name} spread"), &drawn["axes"][name]["spread"], 1);
+        check_count(
+            &format!("axis {name} spread"),
+            &drawn["axes"][name]["spread"],
+            1,
+        );
         assert!(
             drawn["axes"][name]["labels"][1]
                 .as_str()
@@ -1094,14 +1172,21 @@ async fn history_and_overview_show_every_run_of_each_trap_and_open_their_results
         );
     }
     // The realignment stands out on x: the last run lies outside the spread of the five before.
-    let x_marks = drawn["axes"]["x"]["runs"].as_array().cloned().unwrap_or_default();
+    let x_marks = drawn["axes"]["x"]["runs"]
+        .as_array()
+        .cloned()
+        .unwrap_or_default();
     assert_eq!(
         x_marks.last().map(|m| m[2].clone()),
         Some(json!("true")),
         "the realigned run is not marked: {x_marks:?}"
     );
     let listed: Vec<Value> = runs[..6].iter().rev().map(|d| d["id"].clone()).collect();
-    assert_eq!(drawn["rows"], Value::Array(listed), "past runs, newest first");
+    assert_eq!(
+        drawn["rows"],
+        Value::Array(listed),
+        "past runs, newest first"
+    );
     browser.screenshot("history", false).await;
     browser.screenshot("history-full", true).await;
 
