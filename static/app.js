@@ -94,6 +94,7 @@ function fmtDate(ms) {
 /** A time-axis tick label as precise as a span of `spanMs` needs. */
 function fmtTick(ms, spanMs) {
   const d = new Date(ms);
+  if (spanMs < 60e3) return d.toLocaleTimeString(undefined, { hour: "2-digit", minute: "2-digit", second: "2-digit", fractionalSecondDigits: 1 });
   if (spanMs < 10 * 60e3) return d.toLocaleTimeString(undefined, { hour: "2-digit", minute: "2-digit", second: "2-digit" });
   if (spanMs < 2 * 86400e3) return d.toLocaleTimeString(undefined, { hour: "2-digit", minute: "2-digit" });
   return d.toLocaleDateString(undefined, { month: "short", day: "numeric" });

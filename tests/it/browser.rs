@@ -20,6 +20,7 @@ use serde_json::{Value, json};
 use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::time::{Duration, Instant};
+use trapwise::http::ServiceOptions;
 
 /// One browser test at a time.
 static ONE_BROWSER: tokio::sync::Mutex<()> = tokio::sync::Mutex::const_new(());
@@ -857,6 +858,42 @@ async fn refused_uploads_show_the_service_problem_beside_the_field_or_file_conce
             browser.screenshot(&format!("refused-{case}"), false).await;
         }
     }
+    // Past the server's size limit: 413, shown at the file, after the progress bar ran.
+    let small_db = TestDb::new(Backend::Sqlite).await;
+    let small = TestServer::start(
+        &small_db,
+        ServiceOptions {
+            max_upload_bytes: 64 << 10,
+            ..options()
+        },
+    )
+    .await;
+    std::fs::write(&good_path, &good_csv).expect("write");
+    let (status, problem) =
+        api_upload(&small, &with(&[]), Some(("good.csv", good_csv.clone()))).await;
+    assert_eq!(status, 413, "{problem}");
+    browser.goto(&small.url("/")).await;
+    for (k, v) in with(&[]) {
+        browser.set_field(&k, &v).await;
+    }
+    browser.pick_file(&good_path).await;
+    browser.submit().await;
+    let shown = browser
+        .wait_for(
+            "the 413 message at the file",
+            "const e = document.getElementById('err-file');
+             return e && !e.hidden ? [e.textContent, e.dataset.code] : null;",
+        )
+        .await;
+    let expected = format!(
+        "{}: {}",
+        problem["title"].as_str().unwrap_or(""),
+        problem["detail"].as_str().unwrap_or("")
+    );
+    assert_eq!(shown, json!([expected, problem["code"]]), "413 at the file");
+    browser.screenshot("refused-too-large", false).await;
+    small.stop().await;
+
     // A good upload afterwards clears the messages and leads to the result.
     browser.goto(&server.url("/#/")).await;
     browser.client.refresh().await.expect("reload");
