@@ -6,7 +6,8 @@
 //! under the data directory; `postgres://...` for a facility), `TRAPWISE_MAX_UPLOAD_BYTES`
 //! (default 1 GiB), `TRAPWISE_MAX_CONCURRENT` (calibrations at once, default the number of
 //! cores), `TRAPWISE_QUEUE` (calibrations waiting beyond those, default 4),
-//! `TRAPWISE_REQUIRE_TOKENS` (`true` demands bearer tokens even on loopback) and
+//! `TRAPWISE_REQUIRE_TOKENS` (`true` demands bearer tokens even on loopback),
+//! `TRAPWISE_UPLOAD_IDLE_S` (longest pause inside an upload body, default 60 s) and
 //! `TRAPWISE_LOG_FORMAT` (`text` or `json`). Command-line flags of `serve` override the first two.
 
 use std::net::SocketAddr;
@@ -16,6 +17,8 @@ use std::path::PathBuf;
 pub const DEFAULT_MAX_UPLOAD_BYTES: u64 = 1 << 30;
 /// Default number of calibrations that may wait for a free slot.
 pub const DEFAULT_QUEUE: usize = 4;
+/// Default longest pause inside an upload body, seconds.
+pub const DEFAULT_UPLOAD_IDLE_S: u64 = 60;
 /// Default listening address: loopback only, so the service may run without tokens.
 pub const DEFAULT_BIND: &str = "127.0.0.1:8080";
 /// Default data directory.
@@ -56,6 +59,7 @@ pub struct Config {
     pub max_concurrent: usize,
     pub queue: usize,
     pub require_tokens: bool,
+    pub upload_idle_s: u64,
     pub log_format: LogFormat,
 }
 
@@ -149,6 +153,12 @@ impl Config {
                 "a whole number of waiting calibrations",
             )?,
             require_tokens,
+            upload_idle_s: parse(
+                "TRAPWISE_UPLOAD_IDLE_S",
+                lookup("TRAPWISE_UPLOAD_IDLE_S"),
+                DEFAULT_UPLOAD_IDLE_S,
+                "a whole number of seconds",
+            )?,
             log_format,
         })
     }

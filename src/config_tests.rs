@@ -27,6 +27,7 @@ fn empty_environment_gives_the_documented_defaults() {
     assert_eq!(config.data_dir, std::path::PathBuf::from("./trapwise-data"));
     assert_eq!(config.max_upload_bytes, 1_073_741_824);
     assert_eq!(config.queue, 4);
+    assert_eq!(config.upload_idle_s, 60);
     assert!(config.max_concurrent >= 1);
     assert_eq!(config.log_format, LogFormat::Text);
     assert!(!config.tokens_required());
@@ -75,6 +76,10 @@ fn malformed_values_name_their_variable() {
         "TRAPWISE_MAX_CONCURRENT",
     );
     check_error(&[("TRAPWISE_QUEUE", "-1")], "TRAPWISE_QUEUE");
+    check_error(
+        &[("TRAPWISE_UPLOAD_IDLE_S", "1m")],
+        "TRAPWISE_UPLOAD_IDLE_S",
+    );
     check_error(&[("TRAPWISE_LOG_FORMAT", "xml")], "TRAPWISE_LOG_FORMAT");
     check_error(
         &[("TRAPWISE_REQUIRE_TOKENS", "maybe")],

@@ -202,3 +202,6 @@ pub(crate) fn read_file(path: &PathBuf) -> Result<Vec<u8>, Failure> {
         )
     })
 }
+
+#[cfg(test)]
+mod tests;

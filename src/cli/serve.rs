@@ -99,6 +99,7 @@ pub(super) fn run(args: &ServeArgs) -> Result<u8, Failure> {
             max_concurrent: config.max_concurrent,
             queue: config.queue,
             tokens_required: config.tokens_required(),
+            upload_idle_s: config.upload_idle_s,
         };
         let listener = tokio::net::TcpListener::bind(config.bind)
             .await
@@ -114,6 +115,15 @@ pub(super) fn run(args: &ServeArgs) -> Result<u8, Failure> {
             "trapwise listening on http://{}/",
             config.bind
         );
+        if options.tokens_required {
+            let tokens = store.tokens().await.map_err(|e| Failure::new(1, e))?;
+            if tokens.iter().all(|t| t.revoked_at_ms.is_some()) {
+                tracing::warn!(
+                    "tokens are required but none is active: every API request will be refused; \
+                     create one with `trapwise token create --lab NAME`"
+                );
+            }
+        }
         let state = AppState::new(store.clone(), options);
         http::serve(listener, state, shutdown_signal())
             .await

@@ -39,7 +39,9 @@ impl Admission {
 
     /// Calibrations admitted and waiting for a slot.
     pub fn queue_depth(&self) -> usize {
-        let running = self.max_concurrent - self.slots.available_permits();
+        let running = self
+            .max_concurrent
+            .saturating_sub(self.slots.available_permits());
         self.admitted.load(Ordering::SeqCst).saturating_sub(running)
     }
 

@@ -50,6 +50,8 @@ pub struct ServiceOptions {
     pub queue: usize,
     /// Whether every API request needs a bearer token.
     pub tokens_required: bool,
+    /// Longest pause inside an upload body before it is given up (408), seconds.
+    pub upload_idle_s: u64,
 }
 
 /// State shared by all handlers (cheap to clone).
@@ -85,6 +87,11 @@ impl AppState {
     /// The largest accepted upload, bytes.
     pub fn max_upload_bytes(&self) -> u64 {
         self.inner.options.max_upload_bytes
+    }
+
+    /// Longest pause inside an upload body, seconds.
+    pub fn upload_idle_s(&self) -> u64 {
+        self.inner.options.upload_idle_s
     }
 
     /// Whether requests need a bearer token.
@@ -139,6 +146,16 @@ async fn track(request: Request, next: Next) -> Response {
     metrics::histogram!("trapwise_http_request_duration_seconds", "method" => method, "route" => route)
         .record(started.elapsed().as_secs_f64());
     response
+}
+
+/// A handler that panicked answers 500 with a problem document; the panic is logged.
+fn panic_response(payload: Box<dyn std::any::Any + Send + 'static>) -> Response {
+    let reason = payload
+        .downcast_ref::<&str>()
+        .map(|s| (*s).to_string())
+        .or_else(|| payload.downcast_ref::<String>().cloned())
+        .unwrap_or_else(|| "a handler panicked".to_string());
+    AppError::internal(format!("panic: {reason}")).into_response()
 }
 
 async fn not_found(request: Request) -> AppError {
@@ -217,6 +234,9 @@ pub fn app(state: AppState) -> Router {
                     tower_http::trace::DefaultOnResponse::new().level(tracing::Level::INFO),
                 ),
         )
+        .layer(tower_http::catch_panic::CatchPanicLayer::custom(
+            panic_response,
+        ))
         .layer(SetRequestIdLayer::x_request_id(MakeV7))
         .layer(
             tower_http::set_header::SetResponseHeaderLayer::if_not_present(

@@ -9,7 +9,8 @@
 //! is hidden from the client.
 //!
 //! Status codes (the one place they are decided): 400 malformed input, 401 missing or bad
-//! token, 404 unknown id (including another lab's), 413 upload past the limit, 415 content type
+//! token, 404 unknown id (including another lab's), 408 upload stalled, 413 upload past the
+//! limit, 415 content type
 //! or file format not read, 422 data that parse but cannot be calibrated, 503 queue full or
 //! database down, 500 anything else.
 
@@ -89,6 +90,16 @@ pub enum AppError {
         /// The field at fault.
         field: Option<String>,
     },
+    /// The client stopped sending the upload for too long (408).
+    #[error(
+        "the upload sent nothing for {idle_s} s at byte offset {byte_offset}; check the network and send it again"
+    )]
+    Stalled {
+        /// The idle limit, seconds.
+        idle_s: u64,
+        /// Bytes received before the stall.
+        byte_offset: u64,
+    },
     /// Data that parse but cannot be calibrated (422).
     #[error("{detail}")]
     Unprocessable {
@@ -148,6 +159,7 @@ impl AppError {
             AppError::NotFound { .. } => StatusCode::NOT_FOUND,
             AppError::TooLarge { .. } => StatusCode::PAYLOAD_TOO_LARGE,
             AppError::UnsupportedMediaType { .. } => StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            AppError::Stalled { .. } => StatusCode::REQUEST_TIMEOUT,
             AppError::Unprocessable { .. } => StatusCode::UNPROCESSABLE_ENTITY,
             AppError::Busy { .. } | AppError::Unavailable { .. } => StatusCode::SERVICE_UNAVAILABLE,
             AppError::Internal { .. } => StatusCode::INTERNAL_SERVER_ERROR,
@@ -163,6 +175,7 @@ impl AppError {
             | AppError::Unprocessable { code, .. } => code,
             AppError::NotFound { .. } => "not-found",
             AppError::TooLarge { .. } => "upload-too-large",
+            AppError::Stalled { .. } => "upload-stalled",
             AppError::Busy { .. } => "busy",
             AppError::Unavailable { .. } => "database-unavailable",
             AppError::Internal { .. } => "internal",
@@ -175,6 +188,7 @@ impl AppError {
             AppError::Unauthorized { .. } => "missing or invalid bearer token",
             AppError::NotFound { .. } => "not found",
             AppError::TooLarge { .. } => "upload too large",
+            AppError::Stalled { .. } => "upload stalled",
             AppError::UnsupportedMediaType { .. } => "unsupported content type or file format",
             AppError::Unprocessable { .. } => "recording cannot be calibrated",
             AppError::Busy { .. } => "calibration queue full",
@@ -276,10 +290,22 @@ fn ingest_field(e: &IngestError) -> Option<&'static str> {
     }
 }
 
+/// The request field of a run condition named in SI by the calibration core.
+fn request_key(core_field: &'static str) -> &'static str {
+    match core_field {
+        "bead_diameter_m" => "bead_diameter_um",
+        "bead_diameter_se_m" => "bead_diameter_se_um",
+        "height_m" => "height_um",
+        "height_se_m" => "height_se_um",
+        "viscosity_pa_s" => "viscosity_mpa_s",
+        other => other,
+    }
+}
+
 fn calibration_code(e: &CalibrationError) -> (&'static str, Option<String>) {
     match e {
         CalibrationError::InvalidCondition { field, .. } => {
-            ("invalid-condition", Some((*field).to_string()))
+            ("invalid-condition", Some(request_key(field).to_string()))
         }
         CalibrationError::Water(_) => ("viscosity-unavailable", Some("temperature_c".into())),
         CalibrationError::Drag(_) => ("wall-correction-undefined", Some("height_um".into())),
@@ -330,9 +356,23 @@ impl From<PipelineError> for AppError {
             }
             PipelineError::Calibration(c) => {
                 let (code, field) = calibration_code(&c);
+                // The core names conditions in SI; say which request field to change.
+                let detail = match (&c, &field) {
+                    (
+                        CalibrationError::InvalidCondition {
+                            field: core,
+                            reason,
+                            ..
+                        },
+                        Some(key),
+                    ) if *core != key.as_str() => {
+                        format!("field `{key}`: {reason} ({c})")
+                    }
+                    _ => c.to_string(),
+                };
                 AppError::Unprocessable {
                     code,
-                    detail: c.to_string(),
+                    detail,
                     field,
                 }
             }

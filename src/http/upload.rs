@@ -116,7 +116,18 @@ where
     E: std::fmt::Display,
 {
     let mut writer: BlobWriter = state.store().blobs().writer().await.map_err(io_error)?;
-    while let Some(chunk) = chunks.next().await {
+    // An idle limit per chunk instead of a timeout over the whole upload: a slow link may take
+    // long for a large file, but a silent one holds a connection and a temporary file for nothing.
+    loop {
+        let idle_s = state.upload_idle_s();
+        let next = tokio::time::timeout(std::time::Duration::from_secs(idle_s), chunks.next());
+        let Ok(next) = next.await else {
+            return Err(AppError::Stalled {
+                idle_s,
+                byte_offset: writer.size_bytes(),
+            });
+        };
+        let Some(chunk) = next else { break };
         let chunk = chunk.map_err(|e| AppError::BadRequest {
             code: "body-read-failed",
             detail: format!(

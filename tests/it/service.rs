@@ -518,6 +518,36 @@ fn bad_cases(good_csv: &[u8]) -> Vec<BadCase> {
             "250",
         ),
         case(
+            "negative bead diameter",
+            "run.csv",
+            good_csv,
+            with(&[("bead_diameter_um", "-1")]),
+            422,
+            "invalid-condition",
+            Some("bead_diameter_um"),
+            "positive",
+        ),
+        case(
+            "npy without a sample rate",
+            "one.npy",
+            &npy_f8(2000),
+            with(&[("units", "nm")]),
+            400,
+            "sample-rate-missing",
+            Some("sample_rate_hz"),
+            "sample rate",
+        ),
+        case(
+            "time going backwards",
+            "run.csv",
+            &csv_backwards(1100),
+            conditions(),
+            422,
+            "time-not-increasing",
+            None,
+            "line",
+        ),
+        case(
             "axis labels do not match",
             "run.csv",
             good_csv,
@@ -530,10 +560,26 @@ fn bad_cases(good_csv: &[u8]) -> Vec<BadCase> {
     ]
 }
 
-/// A complex128 .npy of 300 zeros, bytes as written by numpy.save (header format of NEP 1).
+/// A complex128 .npy of 300 zeros, laid out as numpy.save writes it (NumPy enhancement
+/// proposal 1: magic, version 1.0, little-endian header length, header padded to 64 bytes).
 fn npy_complex() -> Vec<u8> {
-    let header = "{'descr': '<c16', 'fortran_order': False, 'shape': (300,), }";
-    let mut padded = header.to_string();
+    let mut bytes = npy_header("<c16", 300);
+    bytes.extend(std::iter::repeat_n(0u8, 300 * 16));
+    bytes
+}
+
+/// A float64 .npy of `n` samples of a sawtooth, in the same layout.
+fn npy_f8(n: usize) -> Vec<u8> {
+    let mut bytes = npy_header("<f8", n);
+    for i in 0..n {
+        bytes.extend_from_slice(&((i % 13) as f64).to_le_bytes());
+    }
+    bytes
+}
+
+/// The magic, version 1.0 and padded header of a one-dimensional .npy.
+fn npy_header(descr: &str, n: usize) -> Vec<u8> {
+    let mut padded = format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': ({n},), }}");
     while (10 + padded.len() + 1) % 64 != 0 {
         padded.push(' ');
     }
@@ -541,8 +587,17 @@ fn npy_complex() -> Vec<u8> {
     let mut bytes = b"\x93NUMPY\x01\x00".to_vec();
     bytes.extend_from_slice(&u16::try_from(padded.len()).unwrap_or(0).to_le_bytes());
     bytes.extend_from_slice(padded.as_bytes());
-    bytes.extend(std::iter::repeat_n(0u8, 300 * 16));
     bytes
+}
+
+/// A CSV whose time column steps back once, at row 700.
+fn csv_backwards(n_rows: usize) -> Vec<u8> {
+    let mut text = String::from("time_s,x_nm\n");
+    for i in 0..n_rows {
+        let t = if i == 700 { 0.0 } else { i as f64 * 1e-4 };
+        text.push_str(&format!("{t},{}\n", (i % 7) as f64 - 3.0));
+    }
+    text.into_bytes()
 }
 
 #[track_caller]
@@ -942,6 +997,55 @@ async fn shutdown_finishes_an_upload_in_flight(backend: Backend) {
     restarted.stop().await;
 }
 
+async fn a_stalled_upload_is_408_and_stores_nothing(backend: Backend) {
+    let db = TestDb::new(backend).await;
+    let impatient = ServiceOptions {
+        upload_idle_s: 1,
+        ..options()
+    };
+    let server = TestServer::start(&db, impatient).await;
+    let before = counts(&server).await;
+    let (_hold_tx, hold_rx) = tokio::sync::oneshot::channel::<()>();
+    // One chunk, then silence until the test ends.
+    let body = futures_util::stream::unfold((0, Some(hold_rx)), |(step, hold)| async move {
+        match step {
+            0 => Some((
+                Ok::<_, std::io::Error>(b"time_s,x_nm\n0,1\n".to_vec()),
+                (1, hold),
+            )),
+            _ => {
+                if let Some(rx) = hold {
+                    let _ = rx.await;
+                }
+                None
+            }
+        }
+    });
+    let response =
+        server
+            .client
+            .post(server.url(
+                "/api/v1/calibrations?instrument=a&trap=b&bead_diameter_um=1&temperature_c=25",
+            ))
+            .header("content-type", "text/csv")
+            .body(reqwest::Body::wrap_stream(body))
+            .send()
+            .await
+            .expect("stalled upload");
+    assert_eq!(response.status().as_u16(), 408);
+    let problem: Value = response.json().await.expect("problem");
+    assert_eq!(problem["code"], "upload-stalled");
+    assert!(
+        problem["detail"]
+            .as_str()
+            .unwrap_or("")
+            .contains("byte offset 16"),
+        "{problem}"
+    );
+    assert_eq!(counts(&server).await, before);
+    server.stop().await;
+}
+
 async fn a_full_queue_answers_503_with_retry_after(backend: Backend) {
     let db = TestDb::new(backend).await;
     let dir = tempfile::tempdir().expect("temporary folder");
@@ -1175,6 +1279,7 @@ on_both_backends!(
     tokens_confine_each_lab_to_its_own_calibrations,
     a_restarted_service_still_serves_every_calibration,
     a_full_queue_answers_503_with_retry_after,
+    a_stalled_upload_is_408_and_stores_nothing,
     shutdown_finishes_an_upload_in_flight,
     health_metrics_openapi_and_page_are_served,
     upload_subcommand_prints_what_calibrate_prints,

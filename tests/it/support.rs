@@ -139,6 +139,7 @@ pub(crate) fn options() -> ServiceOptions {
         max_concurrent: 2,
         queue: 8,
         tokens_required: false,
+        upload_idle_s: 30,
     }
 }
 
