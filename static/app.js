@@ -284,9 +284,10 @@ function problemTarget(status, problem) {
   if (FORM_FIELDS.has(field)) return field;
   if (status === 401) return "token";
   if (field) return null;
-  // Problems without a field about the body are about the recording: its size (413), its
-  // format (415), its contents (400 from the readers, 422 from the calibration).
-  if ([400, 413, 415, 422].includes(status)) return "file";
+  // Problems without a field about the body are about the recording: its sending (408
+  // stalled), its size (413), its format (415), its contents (400 from the readers, 422 from
+  // the calibration).
+  if ([400, 408, 413, 415, 422].includes(status)) return "file";
   return null;
 }
 
