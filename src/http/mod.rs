@@ -9,13 +9,14 @@
 //! `POST /api/v1/calibrations`, `GET /api/v1/calibrations`, `GET /api/v1/calibrations/{id}`,
 //! `GET /api/v1/calibrations/{id}/recording`, `GET /api/v1/calibrations/{id}/plots`,
 //! `GET /api/v1/instruments/{instrument}/traps/{trap}/history`, `GET /healthz`, `GET /metrics`,
-//! and the page at `/`.
+//! and the page at `/` with its `/app.js` and `/style.css` (see `page`).
 
 pub mod admission;
 pub mod auth;
 mod calibrations;
 pub mod openapi;
 mod ops;
+mod page;
 pub mod problem;
 mod upload;
 pub mod wire;
@@ -26,7 +27,7 @@ use axum::Router;
 use axum::extract::{DefaultBodyLimit, MatchedPath, Request};
 use axum::http::{HeaderValue, header};
 use axum::middleware::Next;
-use axum::response::{Html, IntoResponse, Response};
+use axum::response::{IntoResponse, Response};
 use axum::routing::get;
 use metrics_exporter_prometheus::{PrometheusBuilder, PrometheusHandle};
 use problem::AppError;
@@ -37,9 +38,6 @@ use tower_http::request_id::{
     MakeRequestId, PropagateRequestIdLayer, RequestId, SetRequestIdLayer,
 };
 use tower_http::trace::TraceLayer;
-
-/// The page served at `/`.
-const INDEX_HTML: &str = include_str!("../../static/index.html");
 
 /// Limits and access policy of a running service.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -160,10 +158,6 @@ fn panic_response(payload: Box<dyn std::any::Any + Send + 'static>) -> Response 
     AppError::internal(format!("panic: {reason}")).into_response()
 }
 
-async fn index() -> Html<&'static str> {
-    Html(INDEX_HTML)
-}
-
 async fn not_found(request: Request) -> AppError {
     AppError::NotFound {
         detail: format!(
@@ -209,8 +203,10 @@ pub fn app(state: AppState) -> Router {
         )
         .route("/openapi.json", get(ops::openapi));
     Router::new()
-        .route("/", get(index))
-        .route("/index.html", get(index))
+        .route("/", get(page::index))
+        .route("/index.html", get(page::index))
+        .route("/app.js", get(page::app_js))
+        .route("/style.css", get(page::style_css))
         .route("/healthz", get(ops::healthz))
         .route("/metrics", get(ops::metrics))
         .nest(wire::API, api)

@@ -22,3 +22,8 @@ mod store;
 // offline CLI's numbers, listing, history, raw downloads, bad inputs, tokens, restarts,
 // operations endpoints, and the `upload` and `token` subcommands.
 mod service;
+
+// The page in headless Chromium over WebDriver against the real service: uploads by drop and
+// by file chooser, numbers equal to the API's, plots drawn, refused uploads' messages, the
+// laser-safety caution in view, history and overview; screenshots in test-output/screenshots.
+mod browser;
