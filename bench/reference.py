@@ -205,6 +205,8 @@ def cmd_efficiency(args):
                 "failures": failures,
                 "fc_mean_hz": float(fcs.mean()),
                 "fc_sd_hz": sd,
+                # IQR / 1.349, the sd of a Gaussian with the same interquartile range.
+                "fc_sd_robust_hz": float(np.subtract(*np.percentile(fcs, [75, 25])) / 1.349),
                 "fc_bias_rel": float(fcs.mean() / args.fc - 1),
                 "fc_bias_in_sd": float((fcs.mean() - args.fc) / sd),
                 "fc_coverage_1se": float(np.mean(np.abs(fcs - args.fc) <= fc_ses)),

@@ -9,7 +9,7 @@
 //! (what a one-shot process pays). The ratio calibration / FFT is the figure the benchmark
 //! targets (at most about five FFTs per axis). One JSON object per line goes to stdout.
 //!
-//! Run: `cargo run --release --example speed -- [--quick] [--max-log2 24]`.
+//! Run: `cargo run --release --example speed -- [--quick] [--min-log2 16] [--max-log2 24]`.
 
 use anyhow::{Context, Result, anyhow};
 use std::hint::black_box;
@@ -135,10 +135,21 @@ fn main() -> Result<()> {
         None if quick => 20,
         None => 24,
     };
+    let min_log2: u32 = match args.iter().position(|a| a == "--min-log2") {
+        Some(i) => args
+            .get(i + 1)
+            .context("--min-log2 needs a value")?
+            .parse()
+            .context("--min-log2 must be an integer")?,
+        None => 16,
+    };
     // One axis over every length; two and three axes at 2^20 and 2^22 (quick: 2^18).
-    let mut cases: Vec<(usize, u32)> = (16..=max_log2).step_by(2).map(|l| (1, l)).collect();
+    let mut cases: Vec<(usize, u32)> = (min_log2..=max_log2)
+        .step_by(2)
+        .map(|l| (1, l))
+        .collect();
     let multi: &[u32] = if quick { &[18] } else { &[20, 22] };
-    for &l in multi.iter().filter(|&&l| l <= max_log2) {
+    for &l in multi.iter().filter(|&&l| (min_log2..=max_log2).contains(&l)) {
         cases.push((2, l));
         cases.push((3, l));
     }
