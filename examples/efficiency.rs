@@ -163,13 +163,7 @@ fn run_setting(setting: &Setting, n_seeds: usize, base_seed: u64) -> Result<serd
     let mut band = (0.0f64, 0.0f64);
     for seed_idx in 0..n_seeds {
         let seed = base_seed + seed_idx as u64;
-        let samples = simulate_axes(
-            &axis,
-            fs,
-            setting.n_samples,
-            seed,
-            &Disturbances::default(),
-        );
+        let samples = simulate_axes(&axis, fs, setting.n_samples, seed, &Disturbances::default());
         let recording = Recording {
             sample_rate_hz: fs,
             unit: PositionUnit::Nanometre,
@@ -202,7 +196,10 @@ fn run_setting(setting: &Setting, n_seeds: usize, base_seed: u64) -> Result<serd
         k_cons.push(s.consensus.value, s.consensus.se, kappa_true);
     }
     if fc_t.values.len() < 3 {
-        return Err(anyhow!("{}: fewer than 3 calibrations succeeded", setting.label));
+        return Err(anyhow!(
+            "{}: fewer than 3 calibrations succeeded",
+            setting.label
+        ));
     }
     let n = setting.n_samples;
     let info_fit = fisher(fc, fs, n, band.0, band.1);

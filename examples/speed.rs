@@ -144,12 +144,12 @@ fn main() -> Result<()> {
         None => 16,
     };
     // One axis over every length; two and three axes at 2^20 and 2^22 (quick: 2^18).
-    let mut cases: Vec<(usize, u32)> = (min_log2..=max_log2)
-        .step_by(2)
-        .map(|l| (1, l))
-        .collect();
+    let mut cases: Vec<(usize, u32)> = (min_log2..=max_log2).step_by(2).map(|l| (1, l)).collect();
     let multi: &[u32] = if quick { &[18] } else { &[20, 22] };
-    for &l in multi.iter().filter(|&&l| (min_log2..=max_log2).contains(&l)) {
+    for &l in multi
+        .iter()
+        .filter(|&&l| (min_log2..=max_log2).contains(&l))
+    {
         cases.push((2, l));
         cases.push((3, l));
     }
@@ -159,9 +159,8 @@ fn main() -> Result<()> {
         let reps = ((1usize << 24) / n).clamp(3, if quick { 5 } else { 11 });
         let rec = recording(n_axes, n, 7);
         let settings = settings(n_axes)?;
-        let (ingest_opts, conditions, analysis) = settings
-            .resolve()
-            .map_err(|e| anyhow!("settings: {e}"))?;
+        let (ingest_opts, conditions, analysis) =
+            settings.resolve().map_err(|e| anyhow!("settings: {e}"))?;
         let samples_bytes_f64 = (n * n_axes * 8) as f64;
 
         let mut parse = serde_json::Map::new();
@@ -198,6 +197,15 @@ fn main() -> Result<()> {
             trapwise::pipeline::run("x.f32", &f32_bytes, &settings, false)
                 .map_err(|e| anyhow!("pipeline: {e}"))
         })?;
+        // The pipeline on CSV bytes, and the SHA-256 of those bytes that every report carries
+        // (it is a pass over the whole file, so it belongs to the end-to-end cost).
+        let csv_bytes =
+            ingest::encode(&rec, Format::Csv, None).map_err(|e| anyhow!("encode: {e}"))?;
+        let pipeline_csv_s = median_time(reps, || {
+            trapwise::pipeline::run("x.csv", &csv_bytes, &settings, false)
+                .map_err(|e| anyhow!("pipeline: {e}"))
+        })?;
+        let sha256_s = median_time(reps, || Ok(trapwise::report::sha256_hex(&csv_bytes)))?;
         let (fft_planned_s, fft_with_plan_s) = fft_floor(n, reps)?;
         let per_axis = calibrate_s / n_axes as f64;
         let line = serde_json::json!({
@@ -210,6 +218,8 @@ fn main() -> Result<()> {
             "calibrate_median_s": calibrate_s,
             "calibrate_per_axis_s": per_axis,
             "pipeline_f32_median_s": pipeline_s,
+            "pipeline_csv_median_s": pipeline_csv_s,
+            "sha256_csv_mb_per_s": csv_bytes.len() as f64 / sha256_s / 1e6,
             "fft_planned_median_s": fft_planned_s,
             "fft_with_plan_median_s": fft_with_plan_s,
             "ratio_calibrate_per_axis_to_fft_planned": per_axis / fft_planned_s,
