@@ -275,7 +275,7 @@ mod tests {
     fn check(fc: f64, f: f64) {
         let fs = 50_000.0;
         let d = 4.9e5;
-        let h = 1e-6;
+        let h: f64 = 1e-6;
         let up = trapwise::spectrum::aliased_lorentzian_one_sided(f, fc * h.exp(), d, fs).ln();
         let down = trapwise::spectrum::aliased_lorentzian_one_sided(f, fc * (-h).exp(), d, fs).ln();
         let numeric = (up - down) / (2.0 * h);
