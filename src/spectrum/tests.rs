@@ -500,6 +500,43 @@ fn aliased_lorentzian_matches_numpy_direct_alias_sums() {
     assert!(n >= 20, "fixture rows: {n}");
 }
 
+/// The interleaved-phasor harmonic sums against direct sums of y_j cos(w j) etc. with `sin_cos`
+/// at every sample (the obviously correct reference), on seeded random input whose length is
+/// not a multiple of the lane count or of the resynchronisation interval.
+#[track_caller]
+fn check_harmonic_sums(n: usize, w: f64) {
+    use rand_distr::{Distribution, StandardNormal};
+    let mut rng = generator(n as u64);
+    let y: Vec<f64> = (0..n).map(|_| StandardNormal.sample(&mut rng)).collect();
+    let mut direct = [0.0f64; 5];
+    for (j, &v) in y.iter().enumerate() {
+        let (s, c) = (w * j as f64).sin_cos();
+        direct[0] += v * c;
+        direct[1] += v * s;
+        direct[2] += c * c;
+        direct[3] += s * s;
+        direct[4] += c * s;
+    }
+    let fast = super::lines::harmonic_sums(&y, w);
+    for (k, (f, d)) in fast.iter().zip(&direct).enumerate() {
+        // Sums of n terms of size <= |y|: rounding of order 1e-12 sqrt(n) is expected.
+        assert!(
+            (f - d).abs() < 1e-9 * (n as f64).sqrt(),
+            "sum {k}: {f} vs {d} (n {n}, w {w})"
+        );
+    }
+}
+
+#[test]
+fn harmonic_sums_match_direct_trigonometric_sums() {
+    check_harmonic_sums(1, 0.3);
+    check_harmonic_sums(7, 0.3);
+    check_harmonic_sums(1023, 2.0 * PI * 50.0 / 10_000.0);
+    check_harmonic_sums(1027, 2.0 * PI * 0.2371);
+    check_harmonic_sums(100_003, 2.0 * PI * 8294.1 / 50_000.0);
+    check_harmonic_sums(262_147, 2.0 * PI * 0.4999);
+}
+
 #[test]
 fn a_sinusoid_off_the_frequency_grid_is_found_and_removed() {
     // Exact: a pure sinusoid is removed to rounding by the least-squares fit at its frequency,
