@@ -1,6 +1,6 @@
 //! `trapwise calibrate FILE`: calibrate one recording offline.
 
-use super::{EXIT_BAD_INPUT, EXIT_NOT_CALIBRATABLE, EXIT_STRICT, Failure, RunArgs, read_file};
+use super::{EXIT_BAD_INPUT, EXIT_NOT_CALIBRATABLE, EXIT_STRICT, Failure, RunArgs, open_file};
 use crate::pipeline::{self, PipelineError};
 use crate::report::{self, CalibrationReport};
 use clap::Args;
@@ -67,13 +67,14 @@ pub(super) fn run(args: &CalibrateArgs) -> Result<u8, Failure> {
     settings
         .resolve()
         .map_err(|e| Failure::new(EXIT_BAD_INPUT, e))?;
-    let bytes = read_file(&args.file)?;
+    let (mut file, size) = open_file(&args.file)?;
     let name = args
         .file
         .file_name()
         .map(|n| n.to_string_lossy().into_owned())
         .unwrap_or_else(|| args.file.display().to_string());
+    let with_plots = args.json && !args.no_plots;
     let report =
-        pipeline::run(&name, &bytes, &settings, args.json && !args.no_plots).map_err(failure)?;
+        pipeline::run_from(&name, &mut file, size, &settings, with_plots).map_err(failure)?;
     print_report(&report, args.json, args.strict)
 }

@@ -193,14 +193,20 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
     }
 }
 
-/// Reads a whole file, naming it in the error.
-pub(crate) fn read_file(path: &PathBuf) -> Result<Vec<u8>, Failure> {
-    std::fs::read(path).map_err(|e| {
+/// Opens a file for reading with its length in bytes (if the metadata tells), naming it in the
+/// error.
+pub(crate) fn open_file(path: &PathBuf) -> Result<(std::fs::File, Option<usize>), Failure> {
+    let file = std::fs::File::open(path).map_err(|e| {
         Failure::new(
             EXIT_BAD_INPUT,
             anyhow::anyhow!("cannot read {}: {e}", path.display()),
         )
-    })
+    })?;
+    let size = file
+        .metadata()
+        .ok()
+        .and_then(|m| usize::try_from(m.len()).ok());
+    Ok((file, size))
 }
 
 #[cfg(test)]

@@ -333,6 +333,8 @@ impl From<PipelineError> for AppError {
     fn from(e: PipelineError) -> Self {
         match e {
             PipelineError::Settings(s) => s.into(),
+            // The staged upload could not be read back: the server's fault, not the client's.
+            PipelineError::Ingest(i @ IngestError::Read { .. }) => AppError::internal(i),
             PipelineError::Ingest(i) => {
                 let field = ingest_field(&i).map(str::to_string);
                 if i.is_unsupported_format() {

@@ -520,8 +520,15 @@ pub(crate) async fn create(
     let started = Instant::now();
     let outcome = tokio::task::spawn_blocking(move || {
         let _permit = permit;
-        let bytes = std::fs::read(&path)?;
-        Ok::<_, std::io::Error>(pipeline::run(&file_name, &bytes, &run_settings, true))
+        let mut file = std::fs::File::open(&path)?;
+        let size = usize::try_from(file.metadata()?.len()).ok();
+        Ok::<_, std::io::Error>(pipeline::run_from(
+            &file_name,
+            &mut file,
+            size,
+            &run_settings,
+            true,
+        ))
     })
     .await
     .map_err(|e| AppError::internal(format!("calibration task: {e}")))?

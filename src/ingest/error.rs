@@ -49,6 +49,17 @@ pub enum IngestError {
         byte_offset: usize,
     },
 
+    /// Reading the file itself failed (a disk or network fault, not a fault of its content).
+    #[error("{file}: byte offset {byte_offset}: cannot read the file: {reason}")]
+    Read {
+        /// File name as given by the caller.
+        file: String,
+        /// Offset in the file at which the read failed.
+        byte_offset: usize,
+        /// What the operating system reported.
+        reason: String,
+    },
+
     /// A CSV or TSV file holds only comments and blank lines, so no header row was found.
     #[error(
         "{file}: line {line}: no header row found; the first line that is not a '#' comment must \
@@ -326,7 +337,8 @@ pub enum IngestError {
     TimeStepNotUniform {
         /// File name as given by the caller.
         file: String,
-        /// Line that ends the offending step.
+        /// Line that ends the step farthest from the mean step (of two about equally far, the
+        /// earlier).
         line: usize,
         /// Mean step (t_last - t_first)/(n - 1) in seconds.
         expected_step_s: f64,
@@ -646,6 +658,7 @@ impl IngestError {
             IngestError::Empty { .. } => "empty-file",
             IngestError::UnknownFormat { .. } => "unknown-format",
             IngestError::InvalidUtf8 { .. } => "invalid-utf8",
+            IngestError::Read { .. } => "read-failed",
             IngestError::NoHeader { .. } => "no-header",
             IngestError::NoDataRows { .. } => "no-data-rows",
             IngestError::NumericHeader { .. } => "numeric-header",

@@ -1,9 +1,12 @@
 //! File formats for bead recordings: text tables, raw little-endian binary and NumPy `.npy`.
 //!
-//! `parse` turns the bytes of one uploaded or local file into a `Recording`, and `encode` writes
-//! a `Recording` back in any of the same formats (used by `trapwise simulate`; everything it writes
-//! parses back to the same samples). Parsers take `&[u8]` and do no IO themselves, so the CLI and
-//! the HTTP service share them unchanged. Every failure is an `IngestError` naming the file and
+//! `read` turns one uploaded or local file, given as a byte stream, into a `Recording`; `parse`
+//! does the same for bytes already in memory; `encode` writes a `Recording` back in any of the
+//! same formats (used by `trapwise simulate`; everything it writes parses back to the same
+//! samples). The parsers see only a `std::io::Read` or a byte slice and open nothing themselves,
+//! so the CLI and the HTTP service share them unchanged. Text is parsed a piece at a time as it
+//! is read (see `stream`), so a CSV file never sits in memory whole; binary formats, which are
+//! no larger than their samples as f64, are read whole and then decoded. Every failure is an `IngestError` naming the file and
 //! the place (line and column for text, byte offset for binary) with a hint of the fix; no input
 //! makes these functions panic.
 //!
@@ -18,10 +21,12 @@
 mod binary;
 mod error;
 mod npy;
+mod stream;
 mod text;
 mod write;
 
 pub use error::IngestError;
+pub use stream::READ_CHUNK_BYTES;
 pub use write::encode;
 
 use crate::recording::{AxisTrace, PositionUnit, Recording};
@@ -208,7 +213,7 @@ pub fn detect_format(file_name: &str, bytes: &[u8]) -> Result<Format, IngestErro
     }
 }
 
-/// Reads one recording file.
+/// Reads one recording file from bytes in memory.
 ///
 /// `file_name` is used for format detection (see `detect_format`) and in error messages only.
 /// The format is `options.format` if given, else detected. Returns a `Recording` with one to
@@ -219,25 +224,67 @@ pub fn parse(
     bytes: &[u8],
     options: &IngestOptions,
 ) -> Result<Recording, IngestError> {
+    let mut source = bytes;
+    read_in_pieces(
+        file_name,
+        &mut source,
+        Some(bytes.len()),
+        options,
+        READ_CHUNK_BYTES,
+    )
+    .map(|(recording, _)| recording)
+}
+
+/// Reads one recording file from a stream, returning it with the format it was read as.
+///
+/// Same rules and errors as `parse`, plus `IngestError::Read` when the stream itself fails.
+/// `size_hint` is the length of the stream in bytes if known (a file's length); it only
+/// pre-sizes buffers. Text formats are parsed as they are read, so memory stays near the size
+/// of the samples; binary formats are read whole first.
+pub fn read(
+    file_name: &str,
+    source: &mut dyn std::io::Read,
+    size_hint: Option<usize>,
+    options: &IngestOptions,
+) -> Result<(Recording, Format), IngestError> {
+    read_in_pieces(file_name, source, size_hint, options, READ_CHUNK_BYTES)
+}
+
+/// `read` with the size of the pieces text is read in (`READ_CHUNK_BYTES` outside tests, which
+/// use tiny pieces to check that the cuts between pieces change nothing).
+fn read_in_pieces(
+    file_name: &str,
+    source: &mut dyn std::io::Read,
+    size_hint: Option<usize>,
+    options: &IngestOptions,
+    chunk_bytes: usize,
+) -> Result<(Recording, Format), IngestError> {
     validate_options(file_name, options)?;
-    if bytes.is_empty() {
+    let mut chunks = stream::LineChunks::new(file_name, source, chunk_bytes);
+    chunks.fill(SNIFF_BYTES)?;
+    if chunks.unread().is_empty() {
         return Err(IngestError::Empty {
             file: file_name.to_string(),
         });
     }
     let format = match options.format {
         Some(format) => format,
-        None => detect_format(file_name, bytes)?,
+        None => detect_format(file_name, chunks.unread())?,
     };
-    match format {
+    let recording = match format {
         Format::Csv | Format::Tsv | Format::Columns => {
-            text::parse_text(file_name, bytes, format, options)
+            text::read_text(file_name, chunks, format, options, size_hint)?
         }
         Format::RawF32 | Format::RawF64 | Format::RawI16 => {
-            binary::parse_raw(file_name, bytes, format, options)
+            let bytes = chunks.into_remaining(size_hint)?;
+            binary::parse_raw(file_name, &bytes, format, options)?
         }
-        Format::Npy => npy::parse_npy(file_name, bytes, options),
-    }
+        Format::Npy => {
+            let bytes = chunks.into_remaining(size_hint)?;
+            npy::parse_npy(file_name, &bytes, options)?
+        }
+    };
+    Ok((recording, format))
 }
 
 /// Rejects option values no file could make sense of, before any byte is read.

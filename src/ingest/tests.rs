@@ -1652,3 +1652,247 @@ fn random_truncated_and_mutated_inputs_never_panic() {
     // Both outcomes occurred, so the loop exercised parsers past their first check.
     assert!(n_ok > 0 && n_err > 0, "ok {n_ok}, err {n_err}");
 }
+
+// ---------------------------------------------------------------------------------------------
+// Streaming: pieces of whole lines
+// ---------------------------------------------------------------------------------------------
+
+/// A reader that hands out at most `max_read` bytes per call and fails with an IO error once
+/// `fail_at` bytes were read, like a slow pipe or a disk that goes away.
+struct Trickle<'a> {
+    bytes: &'a [u8],
+    max_read: usize,
+    fail_at: Option<usize>,
+    pos: usize,
+}
+
+impl std::io::Read for Trickle<'_> {
+    fn read(&mut self, out: &mut [u8]) -> std::io::Result<usize> {
+        if self.fail_at.is_some_and(|at| self.pos >= at) {
+            return Err(std::io::Error::other("device went away"));
+        }
+        let limit = self.fail_at.unwrap_or(usize::MAX).min(self.bytes.len());
+        let n = out.len().min(self.max_read).min(limit - self.pos);
+        out[..n].copy_from_slice(&self.bytes[self.pos..self.pos + n]);
+        self.pos += n;
+        Ok(n)
+    }
+}
+
+/// Text inputs whose rules span lines: preambles, BOM, CRLF, trailing blank lines, a missing final
+/// line feed, every row-level error, and errors found only after the last row (time checks).
+fn text_cases() -> Vec<(&'static str, Vec<u8>, IngestOptions)> {
+    let rate_nm = with_rate_unit(1000.0, PositionUnit::Nanometre);
+    let mut bom_crlf = b"\xEF\xBB\xBF# instrument bench-3\r\n\r\n".to_vec();
+    bom_crlf.extend(
+        String::from_utf8(simple_csv(1100))
+            .unwrap()
+            .replace('\n', "\r\n")
+            .into_bytes(),
+    );
+    bom_crlf.extend_from_slice(b"\r\n  \r\n\n");
+    let mut no_final_lf = simple_csv(1100);
+    no_final_lf.pop();
+    let blank_inside = {
+        let mut t = simple_csv(600);
+        t.extend_from_slice(b"\n");
+        t.extend(table("", 600, |k| {
+            format!("{},{k}", (k + 600) as f64 / 65536.0)
+        }));
+        t
+    };
+    let jump = table("time_s,x_nm\n", 1100, |k| {
+        let t = if k >= 700 { k as f64 + 0.5 } else { k as f64 } / 64.0;
+        format!("{t},{k}")
+    });
+    let backwards = table("time_s,x_nm\n", 1100, |k| {
+        let t = if k == 900 { 0.0 } else { k as f64 / 64.0 };
+        format!("{t},{k}")
+    });
+    let bad_cell = table("t,x_V\n", 1100, |k| {
+        if k == 1000 {
+            "0.5,1.2.3".to_string()
+        } else {
+            format!("{},{k}", k as f64 / 64.0)
+        }
+    });
+    let ragged = table("t,x_nm,y_nm\n", 1100, |k| {
+        if k == 800 {
+            format!("{k},1")
+        } else {
+            format!("{k},1,2")
+        }
+    });
+    let columns = table("# headerless\n\n", 1500, |k| {
+        format!("{k}   {}\t{}", k % 5, k % 3)
+    });
+    let tsv = table("time (ms)\tx [nm]\n", 1200, |k| {
+        format!("{}\t{}", k as f64 * 0.5, k % 9)
+    });
+    let invalid_utf8 = {
+        let mut t = simple_csv(1100);
+        let at = t.len() - 20;
+        t[at] = 0xFF;
+        t
+    };
+    vec![
+        ("plain.csv", simple_csv(1500), options()),
+        ("bom-crlf.csv", bom_crlf, options()),
+        ("no-final-lf.csv", no_final_lf, options()),
+        ("blank-inside.csv", blank_inside, options()),
+        ("jump.csv", jump, options()),
+        ("backwards.csv", backwards, options()),
+        ("bad-cell.csv", bad_cell, options()),
+        ("ragged.csv", ragged, with_rate(10.0)),
+        ("few.csv", simple_csv(1000), options()),
+        ("comments-only.csv", b"# a\n# b\n\n".to_vec(), options()),
+        ("header-only.csv", b"t,x_nm\n".to_vec(), options()),
+        ("columns.txt", columns, rate_nm.clone()),
+        ("ms.tsv", tsv, options()),
+        ("rate-conflict.csv", simple_csv(1100), with_rate(1000.0)),
+        ("invalid.csv", invalid_utf8, options()),
+    ]
+}
+
+/// The outcome of a read as comparable text: the samples or the error message.
+fn outcome(
+    result: Result<(Recording, Format), IngestError>,
+) -> Result<(Recording, Format), String> {
+    result.map_err(|e| format!("{} / {e}", e.kind()))
+}
+
+#[test]
+fn text_read_in_pieces_gives_what_the_whole_file_gives() {
+    // Piece sizes down to one byte put a cut in every possible place: inside the BOM, between CR
+    // and LF, inside numbers and in the preamble.
+    for (name, bytes, opts) in text_cases() {
+        let whole = outcome(read_in_pieces(
+            name,
+            &mut &bytes[..],
+            None,
+            &opts,
+            bytes.len() + 1,
+        ));
+        for chunk in [1, 2, 3, 7, 64, 1000, READ_CHUNK_BYTES] {
+            let pieces = outcome(read_in_pieces(
+                name,
+                &mut &bytes[..],
+                Some(bytes.len()),
+                &opts,
+                chunk,
+            ));
+            assert_eq!(pieces, whole, "{name} read in pieces of {chunk} bytes");
+        }
+        let mut trickle = Trickle {
+            bytes: &bytes,
+            max_read: 5,
+            fail_at: None,
+            pos: 0,
+        };
+        let trickled = outcome(read_in_pieces(name, &mut trickle, None, &opts, 4096));
+        assert_eq!(
+            trickled, whole,
+            "{name} read from a reader giving 5 bytes per call"
+        );
+    }
+}
+
+#[test]
+fn text_errors_after_the_first_piece_name_the_line_and_byte_of_the_whole_file() {
+    // With pieces of 64 bytes the bad cell (row 1000, line 1002), the ragged row (line 802),
+    // the blank line (line 602), the jump in time (line 702) and the invalid byte lie many pieces
+    // in; each message must still count from the start of the file.
+    let expected = [
+        ("bad-cell.csv", "line 1002, column 2"),
+        ("ragged.csv", "line 802"),
+        ("blank-inside.csv", "line 602"),
+        ("jump.csv", "line 702"),
+        ("backwards.csv", "line 902"),
+    ];
+    let cases = text_cases();
+    for (name, fragment) in expected {
+        let (_, bytes, opts) = cases.iter().find(|(n, _, _)| *n == name).unwrap();
+        let e = read_in_pieces(name, &mut &bytes[..], None, opts, 64).unwrap_err();
+        assert!(e.to_string().contains(fragment), "{name}: {e}");
+    }
+    let (_, bytes, opts) = cases.iter().find(|(n, _, _)| *n == "invalid.csv").unwrap();
+    let offset = bytes.len() - 20;
+    let line = 1 + bytes[..offset].iter().filter(|&&b| b == b'\n').count();
+    let e = read_in_pieces("invalid.csv", &mut &bytes[..], None, opts, 64).unwrap_err();
+    assert!(
+        matches!(e, IngestError::InvalidUtf8 { byte_offset, line: l, .. } if byte_offset == offset && l == line),
+        "{e:?}"
+    );
+}
+
+#[test]
+fn failing_reader_is_a_read_error_at_the_byte_reached() {
+    let bytes = simple_csv(5000);
+    for (fail_at, chunk) in [(0, 4096), (10_000, 4096), (70_000, 64)] {
+        let mut reader = Trickle {
+            bytes: &bytes,
+            max_read: 1000,
+            fail_at: Some(fail_at),
+            pos: 0,
+        };
+        let e = read_in_pieces("gone.csv", &mut reader, None, &options(), chunk).unwrap_err();
+        match &e {
+            IngestError::Read { byte_offset, .. } => assert_eq!(*byte_offset, fail_at),
+            other => panic!("expected a read error, got {other:?}"),
+        }
+        assert!(e.to_string().contains("device went away"), "{e}");
+        assert!(e.to_string().starts_with("gone.csv: byte offset"), "{e}");
+    }
+    // Binary formats are read whole: the error names the byte as well.
+    let raw = vec![0u8; 8000];
+    let mut reader = Trickle {
+        bytes: &raw,
+        max_read: 100,
+        fail_at: Some(4000),
+        pos: 0,
+    };
+    let opts = IngestOptions {
+        format: Some(Format::RawF32),
+        ..with_rate_unit(1000.0, PositionUnit::Volt)
+    };
+    let e = read_in_pieces("gone.f32", &mut reader, None, &opts, 64).unwrap_err();
+    assert!(
+        matches!(
+            e,
+            IngestError::Read {
+                byte_offset: 4000,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
+}
+
+#[test]
+fn read_reports_the_format_it_detected() {
+    let bytes = simple_csv(1500);
+    let (rec, format) = read("a.csv", &mut &bytes[..], None, &options()).unwrap();
+    assert_eq!(format, Format::Csv);
+    assert_eq!(rec, parse("a.csv", &bytes, &options()).unwrap());
+    let npy = encode(&rec, Format::Npy, None).unwrap();
+    let opts = with_rate_unit(rec.sample_rate_hz, PositionUnit::Nanometre);
+    let (back, format) = read("a.npy", &mut &npy[..], Some(npy.len()), &opts).unwrap();
+    assert_eq!(format, Format::Npy);
+    assert_eq!(back.axes, rec.axes);
+}
+
+#[test]
+fn time_step_error_names_the_step_farthest_from_the_mean() {
+    // 1100 stamps 1/64 s apart but one gap of 40 steps at row 600: the mean step grows by
+    // 39/1099, so every normal step is out of a 1e-3 tolerance too; the message must point at the
+    // gap (line 602), the step farthest from the mean, not at the first normal step.
+    let bytes = table("time_s,x_nm\n", 1100, |k| {
+        let t = if k >= 600 { k as f64 + 39.0 } else { k as f64 } / 64.0;
+        format!("{t},{k}")
+    });
+    check_err(
+        parse("gap.csv", &bytes, &options()),
+        "time-step-not-uniform",
+        &["line 602", "time step 6.250000e-1 s"],
+    );
+}

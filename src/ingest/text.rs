@@ -19,6 +19,7 @@
 //! CSV here is the unquoted subset of RFC 4180 (Common Format and MIME Type for CSV Files):
 //! data cells are never quoted, and LF line ends are accepted as well as CRLF.
 
+use super::stream::LineChunks;
 use super::{
     Format, IngestError, IngestOptions, MIN_SAMPLES, SNIFF_BYTES, check_rate, finish,
     finish_unlabelled, required_rate, required_unit,
@@ -145,183 +146,390 @@ fn is_number(cell: &str) -> bool {
     fast_float2::parse::<f64, _>(cell).is_ok()
 }
 
-/// Reads a CSV, TSV or headerless-columns file (see the module documentation for the layout).
-pub(super) fn parse_text(
-    file: &str,
-    bytes: &[u8],
-    format: Format,
-    options: &IngestOptions,
-) -> Result<Recording, IngestError> {
-    if let Err(e) = std::str::from_utf8(bytes) {
-        let byte_offset = e.valid_up_to();
-        return Err(IngestError::InvalidUtf8 {
-            file: file.to_string(),
-            line: 1 + count_line_feeds(bytes.get(..byte_offset).unwrap_or(bytes)),
-            byte_offset,
-        });
-    }
-    let mut cursor = Cursor {
-        bytes,
-        pos: if bytes.starts_with(BOM) { BOM.len() } else { 0 },
-        line: 1,
-    };
-    cursor.skip_preamble();
-    if cursor.at_end() {
-        return Err(match format {
-            Format::Columns => IngestError::NoDataRows {
-                file: file.to_string(),
-                line: cursor.last_line(),
-            },
-            _ => IngestError::NoHeader {
-                file: file.to_string(),
-                line: cursor.last_line(),
-            },
-        });
-    }
-    match format {
-        Format::Tsv => parse_headed(file, &mut cursor, Sep::Tab, format, options),
-        Format::Columns => parse_columns(file, &mut cursor, options),
-        _ => parse_headed(file, &mut cursor, Sep::Comma, Format::Csv, options),
-    }
-}
-
-/// Reads a headerless table of one to three position columns.
-fn parse_columns(
-    file: &str,
-    cursor: &mut Cursor<'_>,
-    options: &IngestOptions,
-) -> Result<Recording, IngestError> {
-    let first_row = cursor.current_line();
-    let sep = if first_row.contains(&b',') {
-        Sep::Comma
-    } else {
-        Sep::Whitespace
-    };
-    let n_cols = count_cells(first_row, sep);
-    if n_cols > 3 {
-        return Err(IngestError::TooManyColumns {
-            file: file.to_string(),
-            line: cursor.line,
-            found: n_cols,
-        });
-    }
-    let unit = required_unit(file, Format::Columns.name(), options)?;
-    let sample_rate_hz = required_rate(file, Format::Columns, options)?;
-    let columns = scan_rows(file, cursor, n_cols, sep, "first row")?;
-    finish_unlabelled(file, sample_rate_hz, unit, columns)
-}
-
-/// Reads a CSV or TSV table with a header row.
-fn parse_headed(
-    file: &str,
-    cursor: &mut Cursor<'_>,
-    sep: Sep,
-    format: Format,
-    options: &IngestOptions,
-) -> Result<Recording, IngestError> {
-    let header_line = cursor.line;
-    let header_bytes = cursor.take_line();
-    // The whole file was checked to be UTF-8 and lines are cut at ASCII bytes.
-    let header_text = std::str::from_utf8(header_bytes).unwrap_or_default();
-    let header = parse_header(file, header_line, header_text, sep, format, options)?;
-    let first_data_line = cursor.line;
-    let mut columns = scan_rows(file, cursor, header.n_cols, sep, "header")?;
-    let n_rows = columns.first().map_or(0, Vec::len);
-    if n_rows == 0 {
-        return Err(IngestError::NoDataRows {
-            file: file.to_string(),
-            line: header_line,
-        });
-    }
-    if n_rows < MIN_SAMPLES {
-        return Err(IngestError::TooFewSamples {
-            file: file.to_string(),
-            found: n_rows,
-        });
-    }
-    let sample_rate_hz = match header.time {
-        Some((col_idx, seconds_per_unit)) => {
-            let mut times_s = columns
-                .get_mut(col_idx)
-                .map(std::mem::take)
-                .unwrap_or_default();
-            if seconds_per_unit != 1.0 {
-                times_s.iter_mut().for_each(|t| *t *= seconds_per_unit);
-            }
-            rate_from_times(file, &times_s, first_data_line, options)?
-        }
-        None => required_rate(file, format, options)?,
-    };
-    let axes = header
-        .positions
-        .into_iter()
-        .map(|(col_idx, name)| AxisTrace {
-            name,
-            samples: columns
-                .get_mut(col_idx)
-                .map(std::mem::take)
-                .unwrap_or_default(),
-        })
-        .collect();
-    finish(file, sample_rate_hz, header.unit, axes)
-}
-
-/// Sample rate (n - 1)/(t_last - t_first) from a time column in seconds, after checking that
-/// the time stamps strictly increase and that every step is within the relative tolerance of
-/// the mean step, and that a given rate agrees within the same tolerance.
+/// Reads a CSV, TSV or headerless-columns file from a stream (see the module documentation for
+/// the layout), one piece of whole lines at a time.
 ///
-/// `first_line` is the line of the first time stamp; rows are on consecutive lines.
-fn rate_from_times(
+/// Memory stays at the samples plus one piece: each piece is checked to be UTF-8, scanned and
+/// dropped, and time stamps are checked as they arrive instead of being kept. `size_hint` (the
+/// length of the whole stream, bytes, if known) only pre-sizes the sample vectors.
+pub(super) fn read_text(
     file: &str,
-    times_s: &[f64],
-    first_line: usize,
+    mut chunks: LineChunks<'_>,
+    format: Format,
     options: &IngestOptions,
-) -> Result<f64, IngestError> {
-    let tolerance = options.time_tolerance;
-    for (row_idx, pair) in times_s.windows(2).enumerate() {
-        if let [previous_s, found_s] = *pair {
-            if found_s <= previous_s {
-                return Err(IngestError::TimeNotIncreasing {
+    size_hint: Option<usize>,
+) -> Result<Recording, IngestError> {
+    let mut line = 1;
+    let mut at_start = true;
+    let mut table: Option<Table> = None;
+    while let Some((base, piece)) = chunks.next_lines()? {
+        check_utf8(file, base, line, piece)?;
+        let mut cursor = Cursor {
+            bytes: piece,
+            pos: 0,
+            line,
+        };
+        if std::mem::take(&mut at_start) && piece.starts_with(BOM) {
+            cursor.pos = BOM.len();
+        }
+        match table.as_mut() {
+            Some(table) => table.scan(file, &mut cursor)?,
+            None => {
+                cursor.skip_preamble();
+                if !cursor.at_end() {
+                    let remaining = size_hint.map(|total| total.saturating_sub(base + cursor.pos));
+                    let started =
+                        table.insert(Table::start(file, &mut cursor, format, options, remaining)?);
+                    started.scan(file, &mut cursor)?;
+                }
+            }
+        }
+        line = cursor.line;
+    }
+    match table {
+        Some(table) => table.finish(file, options),
+        None => {
+            if at_start {
+                return Err(IngestError::Empty {
                     file: file.to_string(),
-                    line: first_line + row_idx + 1,
-                    previous_s,
-                    found_s,
                 });
             }
+            // The last line of the file: a final line feed does not start a new line.
+            let last_line = if chunks.ended_with_line_feed() {
+                (line - 1).max(1)
+            } else {
+                line
+            };
+            Err(match format {
+                Format::Columns => IngestError::NoDataRows {
+                    file: file.to_string(),
+                    line: last_line,
+                },
+                _ => IngestError::NoHeader {
+                    file: file.to_string(),
+                    line: last_line,
+                },
+            })
         }
     }
-    let (Some(&first_s), Some(&last_s)) = (times_s.first(), times_s.last()) else {
-        return required_rate(file, Format::Csv, options);
-    };
-    let n_steps = times_s.len().saturating_sub(1).max(1) as f64;
-    let span_s = last_s - first_s;
-    let mean_step_s = span_s / n_steps;
-    for (row_idx, pair) in times_s.windows(2).enumerate() {
-        if let [previous_s, next_s] = *pair {
-            let step_s = next_s - previous_s;
-            if (step_s - mean_step_s).abs() > tolerance * mean_step_s {
+}
+
+/// Checks that a piece starting at byte `base` of the file, on line `first_line`, is UTF-8.
+fn check_utf8(file: &str, base: usize, first_line: usize, piece: &[u8]) -> Result<(), IngestError> {
+    match std::str::from_utf8(piece) {
+        Ok(_) => Ok(()),
+        Err(e) => {
+            let valid = e.valid_up_to();
+            Err(IngestError::InvalidUtf8 {
+                file: file.to_string(),
+                line: first_line + count_line_feeds(piece.get(..valid).unwrap_or(piece)),
+                byte_offset: base + valid,
+            })
+        }
+    }
+}
+
+/// What the first row of a table fixed, and the rows read so far.
+struct Table {
+    /// Cell separator.
+    sep: Sep,
+    /// What fixed `n_cols`, for messages: "header" or "first row".
+    reference: &'static str,
+    /// One vector per column; the time column's is emptied after each piece.
+    columns: Vec<Vec<f64>>,
+    /// Column index of the time column and the checks on its stamps.
+    time: Option<(usize, TimeCheck)>,
+    /// Headed tables: the header's line, position columns with names, and the unit.
+    header: Option<(usize, Vec<(usize, String)>)>,
+    /// Unit of the positions.
+    unit: PositionUnit,
+    /// Sample rate known before the rows (headerless tables).
+    given_rate_hz: Option<f64>,
+    /// Data rows read.
+    n_rows: usize,
+    /// A blank line followed so far only by blank lines: allowed at the end of the file only.
+    trailing_blank: Option<usize>,
+}
+
+impl Table {
+    /// Reads the header (or looks at the first row of a headerless table) at the cursor and
+    /// sizes the columns for about `remaining` more bytes (the rest of the piece if unknown).
+    fn start(
+        file: &str,
+        cursor: &mut Cursor<'_>,
+        format: Format,
+        options: &IngestOptions,
+        remaining: Option<usize>,
+    ) -> Result<Table, IngestError> {
+        let mut table = match format {
+            Format::Columns => {
+                let first_row = cursor.current_line();
+                let sep = if first_row.contains(&b',') {
+                    Sep::Comma
+                } else {
+                    Sep::Whitespace
+                };
+                let n_cols = count_cells(first_row, sep);
+                if n_cols > 3 {
+                    return Err(IngestError::TooManyColumns {
+                        file: file.to_string(),
+                        line: cursor.line,
+                        found: n_cols,
+                    });
+                }
+                let unit = required_unit(file, Format::Columns.name(), options)?;
+                let rate = required_rate(file, Format::Columns, options)?;
+                Table::new(n_cols, sep, "first row", unit, Some(rate))
+            }
+            _ => {
+                let (sep, format) = match format {
+                    Format::Tsv => (Sep::Tab, Format::Tsv),
+                    _ => (Sep::Comma, Format::Csv),
+                };
+                let header_line = cursor.line;
+                let header_bytes = cursor.take_line();
+                // The piece was checked to be UTF-8 and lines are cut at ASCII bytes.
+                let header_text = std::str::from_utf8(header_bytes).unwrap_or_default();
+                let header = parse_header(file, header_line, header_text, sep, format, options)?;
+                let given_rate_hz = match header.time {
+                    Some(_) => None,
+                    None => Some(required_rate(file, format, options)?),
+                };
+                let mut table =
+                    Table::new(header.n_cols, sep, "header", header.unit, given_rate_hz);
+                table.time = header
+                    .time
+                    .map(|(col_idx, seconds_per_unit)| (col_idx, TimeCheck::new(seconds_per_unit)));
+                table.header = Some((header_line, header.positions));
+                table
+            }
+        };
+        // Pre-size from the length of the first row; the estimate cannot exceed one row per two
+        // bytes, the shortest possible row.
+        let remaining = remaining.unwrap_or_else(|| cursor.bytes.len().saturating_sub(cursor.pos));
+        let first_row_bytes = cursor.current_line().len() + 1;
+        let estimate = remaining / first_row_bytes + remaining / first_row_bytes / 16 + 1;
+        let capacity = estimate.min(remaining / 2 + 1);
+        let time_idx = table.time.as_ref().map(|(idx, _)| *idx);
+        for (col_idx, column) in table.columns.iter_mut().enumerate() {
+            if Some(col_idx) != time_idx {
+                column.reserve_exact(capacity);
+            }
+        }
+        Ok(table)
+    }
+
+    /// An empty table of `n_cols` columns.
+    fn new(
+        n_cols: usize,
+        sep: Sep,
+        reference: &'static str,
+        unit: PositionUnit,
+        given_rate_hz: Option<f64>,
+    ) -> Table {
+        Table {
+            sep,
+            reference,
+            columns: (0..n_cols).map(|_| Vec::new()).collect(),
+            time: None,
+            header: None,
+            unit,
+            given_rate_hz,
+            n_rows: 0,
+            trailing_blank: None,
+        }
+    }
+
+    /// Reads the data rows of the rest of the piece at the cursor.
+    fn scan(&mut self, file: &str, cursor: &mut Cursor<'_>) -> Result<(), IngestError> {
+        if let Some(blank_line) = self.trailing_blank {
+            let rest = cursor.bytes.get(cursor.pos..).unwrap_or_default();
+            if rest.iter().all(u8::is_ascii_whitespace) {
+                cursor.pos = cursor.bytes.len();
+                cursor.line += count_line_feeds(rest);
+                return Ok(());
+            }
+            return Err(IngestError::BlankLine {
+                file: file.to_string(),
+                line: blank_line,
+            });
+        }
+        let first_row_line = cursor.line;
+        let rows_before = self.columns.first().map_or(0, Vec::len);
+        self.trailing_blank = scan_rows(file, cursor, &mut self.columns, self.sep, self.reference)?;
+        let n_new = self.columns.first().map_or(0, Vec::len) - rows_before;
+        if let Some((col_idx, check)) = self.time.as_mut() {
+            if let Some(times) = self.columns.get_mut(*col_idx) {
+                check.feed(times, first_row_line);
+                times.clear();
+            }
+        }
+        self.n_rows += n_new;
+        Ok(())
+    }
+
+    /// Checks the row count and the time stamps and assembles the recording.
+    fn finish(mut self, file: &str, options: &IngestOptions) -> Result<Recording, IngestError> {
+        let Some((header_line, positions)) = self.header.take() else {
+            let rate = self.given_rate_hz.unwrap_or(f64::NAN);
+            return finish_unlabelled(file, rate, self.unit, self.columns);
+        };
+        if self.n_rows == 0 {
+            return Err(IngestError::NoDataRows {
+                file: file.to_string(),
+                line: header_line,
+            });
+        }
+        if self.n_rows < MIN_SAMPLES {
+            return Err(IngestError::TooFewSamples {
+                file: file.to_string(),
+                found: self.n_rows,
+            });
+        }
+        let sample_rate_hz = match (self.time.take(), self.given_rate_hz) {
+            (Some((_, check)), _) => check.rate(file, options)?,
+            (None, Some(rate)) => rate,
+            (None, None) => required_rate(file, Format::Csv, options)?,
+        };
+        let axes = positions
+            .into_iter()
+            .map(|(col_idx, name)| AxisTrace {
+                name,
+                samples: self
+                    .columns
+                    .get_mut(col_idx)
+                    .map(std::mem::take)
+                    .unwrap_or_default(),
+            })
+            .collect();
+        finish(file, sample_rate_hz, self.unit, axes)
+    }
+}
+
+/// Checks on a time column made as its stamps arrive, so that the stamps need not be kept.
+///
+/// The sample rate is (n - 1)/(t_last - t_first). The stamps must strictly increase (the first
+/// stamp that does not is reported), and every step must lie within the relative tolerance of
+/// the mean step; since the mean is known only at the end, the smallest and the largest step are
+/// kept with their lines, and the one farther from the mean is reported.
+#[derive(Debug)]
+struct TimeCheck {
+    /// Seconds per unit of the column.
+    seconds_per_unit: f64,
+    /// Stamps seen.
+    n: usize,
+    /// First and latest stamp, seconds.
+    first_s: f64,
+    last_s: f64,
+    /// Line of the first stamp that does not increase, with the stamp before it and itself.
+    not_increasing: Option<(usize, f64, f64)>,
+    /// Smallest and largest step, seconds, with the line that ends each.
+    min_step: (f64, usize),
+    max_step: (f64, usize),
+}
+
+impl TimeCheck {
+    /// No stamps yet.
+    fn new(seconds_per_unit: f64) -> Self {
+        TimeCheck {
+            seconds_per_unit,
+            n: 0,
+            first_s: f64::NAN,
+            last_s: f64::NAN,
+            not_increasing: None,
+            min_step: (f64::INFINITY, 0),
+            max_step: (f64::NEG_INFINITY, 0),
+        }
+    }
+
+    /// Takes the stamps of consecutive rows starting on line `first_line`, in column units.
+    fn feed(&mut self, stamps: &[f64], first_line: usize) {
+        for (row_idx, &stamp) in stamps.iter().enumerate() {
+            let t_s = if self.seconds_per_unit == 1.0 {
+                stamp
+            } else {
+                stamp * self.seconds_per_unit
+            };
+            if self.n == 0 {
+                self.first_s = t_s;
+            } else {
+                let line = first_line + row_idx;
+                let step_s = t_s - self.last_s;
+                if t_s <= self.last_s && self.not_increasing.is_none() {
+                    self.not_increasing = Some((line, self.last_s, t_s));
+                }
+                if step_s < self.min_step.0 {
+                    self.min_step = (step_s, line);
+                }
+                if step_s > self.max_step.0 {
+                    self.max_step = (step_s, line);
+                }
+            }
+            self.last_s = t_s;
+            self.n += 1;
+        }
+    }
+
+    /// The sample rate, after the checks; a rate given in the options must agree with it
+    /// within the tolerance.
+    fn rate(self, file: &str, options: &IngestOptions) -> Result<f64, IngestError> {
+        let tolerance = options.time_tolerance;
+        if let Some((line, previous_s, found_s)) = self.not_increasing {
+            return Err(IngestError::TimeNotIncreasing {
+                file: file.to_string(),
+                line,
+                previous_s,
+                found_s,
+            });
+        }
+        if self.n == 0 {
+            return required_rate(file, Format::Csv, options);
+        }
+        let n_steps = self.n.saturating_sub(1).max(1) as f64;
+        let span_s = self.last_s - self.first_s;
+        let mean_step_s = span_s / n_steps;
+        if self.n > 1 {
+            // Every step lies between the two extremes, so a step is out of tolerance only if
+            // one of them is. The one farther from the mean is reported (that is where the
+            // stamps go wrong); when both are about as far (one late stamp makes a long step and
+            // then a short one), the earlier.
+            let below = mean_step_s - self.min_step.0;
+            let above = self.max_step.0 - mean_step_s;
+            let near_tie = (above - below).abs() <= 1e-9 * mean_step_s;
+            let (found_step_s, line) = if near_tie {
+                if self.max_step.1 < self.min_step.1 {
+                    self.max_step
+                } else {
+                    self.min_step
+                }
+            } else if above > below {
+                self.max_step
+            } else {
+                self.min_step
+            };
+            if (found_step_s - mean_step_s).abs() > tolerance * mean_step_s {
                 return Err(IngestError::TimeStepNotUniform {
                     file: file.to_string(),
-                    line: first_line + row_idx + 1,
+                    line,
                     expected_step_s: mean_step_s,
-                    found_step_s: step_s,
+                    found_step_s,
                     tolerance,
                 });
             }
         }
+        let time_column_hz = check_rate(file, n_steps / span_s)?;
+        let conflicting =
+            |given_hz: &f64| (given_hz - time_column_hz).abs() > tolerance * time_column_hz;
+        if let Some(given_hz) = options.sample_rate_hz.filter(conflicting) {
+            return Err(IngestError::SampleRateConflict {
+                file: file.to_string(),
+                given_hz,
+                time_column_hz,
+                tolerance,
+            });
+        }
+        Ok(time_column_hz)
     }
-    let time_column_hz = check_rate(file, n_steps / span_s)?;
-    let conflicting =
-        |given_hz: &f64| (given_hz - time_column_hz).abs() > tolerance * time_column_hz;
-    if let Some(given_hz) = options.sample_rate_hz.filter(conflicting) {
-        return Err(IngestError::SampleRateConflict {
-            file: file.to_string(),
-            given_hz,
-            time_column_hz,
-            tolerance,
-        });
-    }
-    Ok(time_column_hz)
 }
 
 /// The meaning of a header row.
@@ -549,16 +757,6 @@ impl<'a> Cursor<'a> {
         self.pos >= self.bytes.len()
     }
 
-    /// The last line of the file (a final line feed does not start a new line).
-    fn last_line(&self) -> usize {
-        let n_feeds = count_line_feeds(self.bytes);
-        if self.bytes.last() == Some(&b'\n') || self.bytes.is_empty() {
-            n_feeds.max(1)
-        } else {
-            n_feeds + 1
-        }
-    }
-
     /// The current line without its line ending, not consumed.
     fn current_line(&self) -> &'a [u8] {
         let rest = self.bytes.get(self.pos..).unwrap_or_default();
@@ -649,29 +847,25 @@ fn quote_cell(bytes: &[u8], start: usize, sep: Sep) -> String {
         .collect()
 }
 
-/// Reads data rows of `n_cols` numeric cells from the cursor to the end of the file, returning
-/// one vector per column. `reference` names what fixed `n_cols` ("header" or "first row").
+/// Reads data rows, one numeric cell per column, from the cursor to the end of its piece,
+/// appending to `columns`. `reference` names what fixed the column count ("header" or "first
+/// row"). Returns the line of a blank line that only blank lines follow within the piece (the
+/// caller allows it only at the end of the file).
 fn scan_rows(
     file: &str,
     cursor: &mut Cursor<'_>,
-    n_cols: usize,
+    columns: &mut [Vec<f64>],
     sep: Sep,
     reference: &'static str,
-) -> Result<Vec<Vec<f64>>, IngestError> {
+) -> Result<Option<usize>, IngestError> {
+    let n_cols = columns.len();
     if n_cols == 0 {
         // Callers never ask for zero columns; returning keeps the row loop from spinning.
-        return Ok(Vec::new());
+        return Ok(None);
     }
     let bytes = cursor.bytes;
     let mut pos = cursor.pos;
     let mut line = cursor.line;
-    // Pre-size from the length of the first row; the estimate cannot exceed one row per two
-    // bytes, the shortest possible row.
-    let remaining = bytes.len().saturating_sub(pos);
-    let first_row_bytes = cursor.current_line().len() + 1;
-    let estimate = remaining / first_row_bytes + remaining / first_row_bytes / 16 + 1;
-    let capacity = estimate.min(remaining / 2 + 1);
-    let mut columns: Vec<Vec<f64>> = (0..n_cols).map(|_| Vec::with_capacity(capacity)).collect();
     let tabs = sep.pads_with_tab();
     let ragged = |line: usize, row_start: usize, found: Option<usize>| {
         let found = found.unwrap_or_else(|| {
@@ -699,7 +893,9 @@ fn scan_rows(
             // A blank line: only blank lines may follow.
             let rest = bytes.get(pos..).unwrap_or_default();
             if rest.iter().all(u8::is_ascii_whitespace) {
-                break;
+                cursor.pos = bytes.len();
+                cursor.line = line + count_line_feeds(rest);
+                return Ok(Some(line));
             }
             return Err(IngestError::BlankLine {
                 file: file.to_string(),
@@ -753,5 +949,5 @@ fn scan_rows(
     }
     cursor.pos = pos;
     cursor.line = line;
-    Ok(columns)
+    Ok(None)
 }
