@@ -239,7 +239,7 @@ struct Table {
     columns: Vec<Vec<f64>>,
     /// Column index of the time column and the checks on its stamps.
     time: Option<(usize, TimeCheck)>,
-    /// Headed tables: the header's line, position columns with names, and the unit.
+    /// Headed tables: the header's line and the position columns with their names.
     header: Option<(usize, Vec<(usize, String)>)>,
     /// Unit of the positions.
     unit: PositionUnit,
@@ -389,6 +389,8 @@ impl Table {
         let sample_rate_hz = match (self.time.take(), self.given_rate_hz) {
             (Some((_, check)), _) => check.rate(file, options)?,
             (None, Some(rate)) => rate,
+            // `start` asked for the rate when the header has no time column; kept as an error,
+            // not a sentinel, should that ever change.
             (None, None) => required_rate(file, Format::Csv, options)?,
         };
         let axes = positions
