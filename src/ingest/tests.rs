@@ -1896,3 +1896,141 @@ fn time_step_error_names_the_step_farthest_from_the_mean() {
         &["line 602", "time step 6.250000e-1 s"],
     );
 }
+
+#[test]
+fn text_scanned_in_halves_on_two_threads_gives_what_one_pass_gives() {
+    // Files of several 1 MiB pieces, so every piece is cut in two halves, with faults placed
+    // in second halves (where the speculative scan runs): a bad cell, a ragged row, a blank
+    // line followed by rows, a jump in time (a blank line ending a first half has its own test
+    // below). Each must read exactly as in one sequential pass, on two threads and on one.
+    let n = 200_000; // about 4.6 MB of text
+    let fault_rows = [n / 2 + 3_000, n - 10];
+    let mut cases = vec![("clean.csv", simple_csv(n))];
+    for &at in &fault_rows {
+        cases.push((
+            "bad-cell.csv",
+            table("time_s,x_nm\n", n, |k| {
+                if k == at {
+                    "0.5,1.2.3".to_string()
+                } else {
+                    format!("{},{}", k as f64 / 65536.0, k % 7)
+                }
+            }),
+        ));
+        cases.push((
+            "ragged.csv",
+            table("time_s,x_nm\n", n, |k| {
+                if k == at {
+                    format!("{},1,2", k as f64 / 65536.0)
+                } else {
+                    format!("{},{}", k as f64 / 65536.0, k % 7)
+                }
+            }),
+        ));
+        cases.push((
+            "jump.csv",
+            table("time_s,x_nm\n", n, |k| {
+                let t = if k >= at { k as f64 + 0.5 } else { k as f64 } / 65536.0;
+                format!("{t},{}", k % 7)
+            }),
+        ));
+    }
+    // A blank line in the second piece and one in a second half.
+    for at in [(3 << 20) / 2 / 23, n / 2 + 3_000] {
+        let mut bytes = table("time_s,x_nm\n", at, |k| {
+            format!("{},{}", k as f64 / 65536.0, k % 7)
+        });
+        bytes.push(b'\n');
+        bytes.extend(table("", n - at, |k| {
+            format!("{},{}", (k + at) as f64 / 65536.0, k % 7)
+        }));
+        cases.push(("blank.csv", bytes));
+    }
+    let read_with = |name: &str, bytes: &[u8], split: text::Split| {
+        let mut source = bytes;
+        let chunks = stream::LineChunks::new(name, &mut source, READ_CHUNK_BYTES);
+        text::read_text(name, chunks, Format::Csv, &options(), None, split)
+            .map_err(|e| format!("{} / {e}", e.kind()))
+    };
+    for (name, bytes) in &cases {
+        let one_pass = read_with(
+            name,
+            bytes,
+            text::Split {
+                min_bytes: usize::MAX,
+                threads: 1,
+            },
+        );
+        for threads in [1, 2] {
+            let halves = read_with(
+                name,
+                bytes,
+                text::Split {
+                    min_bytes: text::SPLIT_MIN_BYTES,
+                    threads,
+                },
+            );
+            assert_eq!(halves, one_pass, "{name} in halves on {threads} thread(s)");
+        }
+        if *name != "clean.csv" {
+            assert!(one_pass.is_err(), "{name} must fail");
+        }
+    }
+}
+
+#[test]
+fn blank_lines_that_end_a_first_half_still_forbid_the_rows_after_them() {
+    // One piece of 4000 rows cut in two near its middle, with a run of 40 blank lines (40
+    // bytes) in it: the run is moved over the rows around the middle, so that for some
+    // placements the cut falls inside it; the first half then ends in blank lines (allowed at
+    // the end of a file) and the rows after them are all in the second half. Every placement
+    // must be the blank-line error a sequential pass gives.
+    let n = 4000;
+    let header = b"time_s,x_nm\n".len();
+    let mut cut_in_blanks = 0;
+    for at in n / 2 - 30..n / 2 + 30 {
+        let mut bytes = table("time_s,x_nm\n", at, |k| {
+            format!("{},{}", k as f64 / 65536.0, k % 7)
+        });
+        let blanks_start = bytes.len();
+        bytes.extend_from_slice(&[b'\n'; 40]);
+        bytes.extend(table("", n - at, |k| {
+            format!("{},{}", (k + at) as f64 / 65536.0, k % 7)
+        }));
+        let read_with = |split: text::Split| {
+            let mut source = &bytes[..];
+            let chunks = stream::LineChunks::new("blank.csv", &mut source, bytes.len() + 1);
+            text::read_text("blank.csv", chunks, Format::Csv, &options(), None, split)
+                .map_err(|e| format!("{} / {e}", e.kind()))
+        };
+        let one_pass = read_with(text::Split {
+            min_bytes: usize::MAX,
+            threads: 1,
+        });
+        assert!(
+            one_pass
+                .as_ref()
+                .is_err_and(|e| e.starts_with("blank-line"))
+        );
+        for threads in [1, 2] {
+            let halves = read_with(text::Split {
+                min_bytes: 1024,
+                threads,
+            });
+            assert_eq!(
+                halves, one_pass,
+                "blank lines after row {at}, {threads} thread(s)"
+            );
+        }
+        // Where the cut falls: after the first line feed at or after the middle of the rows.
+        let rest = &bytes[header..];
+        let cut = header + (rest.len() / 2..).find(|&i| rest[i] == b'\n').unwrap() + 1;
+        if (blanks_start + 1..blanks_start + 40).contains(&cut) {
+            cut_in_blanks += 1;
+        }
+    }
+    assert!(
+        cut_in_blanks >= 1,
+        "no placement put the cut among the blank lines"
+    );
+}
