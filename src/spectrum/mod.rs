@@ -29,8 +29,6 @@ pub use model::{
 };
 pub use peaks::{NarrowPeak, find_narrow_peaks};
 
-use realfft::RealFftPlanner;
-
 /// An averaged one-sided periodogram.
 #[derive(Clone, Debug)]
 pub struct Periodogram {
@@ -91,8 +89,7 @@ pub fn periodogram(samples: &[f64], sample_rate_hz: f64, n_windows: usize) -> Op
         return None;
     }
     let mean = samples.iter().sum::<f64>() / samples.len() as f64;
-    let mut planner = RealFftPlanner::<f64>::new();
-    let fft = planner.plan_fft_forward(segment_len);
+    let fft = crate::fft::forward(segment_len);
     let mut input = fft.make_input_vec();
     let mut output = fft.make_output_vec();
     let mut scratch = fft.make_scratch_vec();
