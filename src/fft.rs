@@ -160,10 +160,15 @@ mod tests {
         let x: Vec<f64> = (0..n).map(|j| ((j * 7 % 13) as f64) - 6.0).collect();
         let first = forward(n);
         let second = forward(n);
-        assert!(Arc::ptr_eq(&first, &second), "the second look-up plans again");
+        assert!(
+            Arc::ptr_eq(&first, &second),
+            "the second look-up plans again"
+        );
         let mut input = x.clone();
         let mut output = first.make_output_vec();
-        first.process(&mut input, &mut output).expect("lengths from the plan");
+        first
+            .process(&mut input, &mut output)
+            .expect("lengths from the plan");
         for (k, (z, (re, im))) in output.iter().zip(direct_dft(&x)).enumerate() {
             assert!(
                 (z.re - re).abs() < 1e-10 && (z.im - im).abs() < 1e-10,

@@ -24,6 +24,7 @@ pub use fit::{
     plain_lorentzian_wls,
 };
 pub use lines::{SpectralLine, fit_line, subtract_lines};
+pub(crate) use model::Params;
 pub use model::{
     DetectorFilter, FilterSetting, HydroTerms, SpectrumModel, aliased_lorentzian_one_sided,
 };
