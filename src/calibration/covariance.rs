@@ -48,6 +48,8 @@ pub(crate) struct InfluenceInputs<'a> {
 /// closed-form aliased Lorentzian, else by central differences of parameters decoded once), the
 /// fit-range weights are formed only inside the fit band, and the lag cosines of the
 /// autocorrelation weight advance by a rotating phasor (see `LagCosines`).
+// Index loops mirror the matrix formula.
+#[allow(clippy::needless_range_loop)]
 pub(crate) fn log_covariance(inp: &InfluenceInputs<'_>) -> [[f64; 4]; 4] {
     let nyquist = inp.sample_rate_hz / 2.0;
     let max_lag = inp

@@ -111,7 +111,7 @@ fn check_fast_matches_reference(
     let theta_covariance: Vec<Vec<f64>> = (0..n_theta)
         .map(|i| {
             (0..n_theta)
-                .map(|j| 1e-4 * (v[i] * v[j] + if i == j { 1.0 } else { 0.0 }))
+                .map(|j| 1e-4 * v[i].mul_add(v[j], if i == j { 1.0 } else { 0.0 }))
                 .collect()
         })
         .collect();
