@@ -11,7 +11,6 @@
 //! The module is pure: plain slices in, plain structs out.
 
 use nalgebra::{DMatrix, DVector, Matrix2, Vector2};
-use realfft::RealFftPlanner;
 use realfft::num_complex::Complex;
 
 /// Errors of the autocorrelation fit.
@@ -211,9 +210,8 @@ pub fn autocovariance(samples: &[f64], max_lag: usize) -> Vec<f64> {
 fn whole_record_lag_sums(samples: &[f64], mean: f64, max_lag: usize) -> Vec<f64> {
     let n_samples = samples.len();
     let fft_len = fast_fft_len(n_samples.saturating_add(max_lag));
-    let mut planner = RealFftPlanner::<f64>::new();
-    let forward = planner.plan_fft_forward(fft_len);
-    let inverse = planner.plan_fft_inverse(fft_len);
+    let forward = crate::fft::forward(fft_len);
+    let inverse = crate::fft::inverse(fft_len);
     let mut buffer = vec![0.0; fft_len];
     for (slot, &x) in buffer.iter_mut().zip(samples) {
         *slot = x - mean;
@@ -259,9 +257,8 @@ fn whole_record_lag_sums(samples: &[f64], mean: f64, max_lag: usize) -> Vec<f64>
 /// transforms of the whole record, with plans for length 2B only.
 fn blocked_lag_sums(samples: &[f64], mean: f64, max_lag: usize, block: usize) -> Vec<f64> {
     let fft_len = 2 * block;
-    let mut planner = RealFftPlanner::<f64>::new();
-    let forward = planner.plan_fft_forward(fft_len);
-    let inverse = planner.plan_fft_inverse(fft_len);
+    let forward = crate::fft::forward(fft_len);
+    let inverse = crate::fft::inverse(fft_len);
     let mut scratch =
         vec![Complex::new(0.0, 0.0); forward.get_scratch_len().max(inverse.get_scratch_len())];
     let mut buffer = vec![0.0; fft_len];

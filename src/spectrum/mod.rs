@@ -24,12 +24,11 @@ pub use fit::{
     plain_lorentzian_wls,
 };
 pub use lines::{SpectralLine, fit_line, subtract_lines};
+pub(crate) use model::Params;
 pub use model::{
     DetectorFilter, FilterSetting, HydroTerms, SpectrumModel, aliased_lorentzian_one_sided,
 };
 pub use peaks::{NarrowPeak, find_narrow_peaks};
-
-use realfft::RealFftPlanner;
 
 /// An averaged one-sided periodogram.
 #[derive(Clone, Debug)]
@@ -91,8 +90,7 @@ pub fn periodogram(samples: &[f64], sample_rate_hz: f64, n_windows: usize) -> Op
         return None;
     }
     let mean = samples.iter().sum::<f64>() / samples.len() as f64;
-    let mut planner = RealFftPlanner::<f64>::new();
-    let fft = planner.plan_fft_forward(segment_len);
+    let fft = crate::fft::forward(segment_len);
     let mut input = fft.make_input_vec();
     let mut output = fft.make_output_vec();
     let mut scratch = fft.make_scratch_vec();
