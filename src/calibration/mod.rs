@@ -359,21 +359,36 @@ pub fn calibrate(
     }
     check_positive("sample_rate_hz", recording.sample_rate_hz)?;
     let physics = physics(conditions)?;
-    let axes = recording
-        .axes
-        .iter()
-        .map(|axis| {
-            calibrate_axis(
-                &axis.name,
-                &axis.samples,
-                recording.sample_rate_hz,
-                recording.unit,
-                conditions,
-                &physics,
-                options,
-            )
-        })
-        .collect::<Result<Vec<_>, _>>()?;
+    let one_axis = |axis: &crate::recording::AxisTrace| {
+        calibrate_axis(
+            &axis.name,
+            &axis.samples,
+            recording.sample_rate_hz,
+            recording.unit,
+            conditions,
+            &physics,
+            options,
+        )
+    };
+    // The axes are independent: each runs on its own scoped thread (the first here), and the
+    // results are taken in axis order, so the first failing axis is reported as in one pass.
+    let axes = match recording.axes.split_first() {
+        Some((first, rest)) if !rest.is_empty() => std::thread::scope(|scope| {
+            let others: Vec<_> = rest
+                .iter()
+                .map(|axis| scope.spawn(move || one_axis(axis)))
+                .collect();
+            let mut results = vec![one_axis(first)];
+            for (axis, handle) in rest.iter().zip(others) {
+                // A panicking axis is a bug; computing it again here surfaces it on this thread.
+                results.push(handle.join().unwrap_or_else(|_| one_axis(axis)));
+            }
+            results
+        }),
+        _ => recording.axes.iter().map(one_axis).collect(),
+    }
+    .into_iter()
+    .collect::<Result<Vec<_>, _>>()?;
     Ok(Calibration { physics, axes })
 }
 
