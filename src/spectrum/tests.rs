@@ -421,6 +421,130 @@ fn narrow_peaks_find_mains_hum_and_nothing_in_clean_data() {
     assert!(mains.contains(&(50.0, 3)), "{peaks:?}");
 }
 
+#[test]
+fn narrow_peak_false_alarm_rate_matches_the_design_on_thermal_spectra() {
+    // Pure thermal records (exact AR(1) simulation) contain no peak, so every flagged bin is a
+    // false alarm. With a per-bin tail of false_alarms / n_bins from the exact distribution of
+    // the ratio, the expected number of flagged bins per spectrum is at most false_alarms
+    // (slightly less: shared windows and the interpolated background), and by the union bound
+    // so is the fraction of spectra with any peak.
+    // Upper check at the design value 0.01 over 1000 spectra: Binomial(1000, 0.01) exceeds 22
+    // with probability 2.7e-4 (sum of binomial terms, computed with Python's math.comb),
+    // while the plain Gamma quantile gave about 3 %, i.e. 30.
+    // Two-sided check at false_alarms = 1, where about 1000 flagged bins are expected in 1000
+    // spectra (Poisson standard deviation about 3 %): the mean per spectrum must lie within
+    // [0.85, 1.12], which a threshold that is too loose (the old one gave 1.14 to 1.42) or too
+    // strict fails.
+    let fs = 20_000.0;
+    let n_seeds = 1000;
+    for (fc_over_fs, n_windows) in [(0.01, 1), (0.25, 1), (0.01, 4)] {
+        let mut spectra_with_peaks = 0;
+        let mut flagged_bins = 0;
+        for seed in 0..n_seeds {
+            let mut rng = generator(10_000 + seed);
+            let x = ou_series(fc_over_fs * fs, 1.0, fs, 1 << 14, &mut rng);
+            let pg = periodogram(&x, fs, n_windows).expect("long enough");
+            if !find_narrow_peaks(&pg, 0.01).is_empty() {
+                spectra_with_peaks += 1;
+            }
+            flagged_bins += find_narrow_peaks(&pg, 1.0)
+                .iter()
+                .map(|p| p.last_bin - p.first_bin + 1)
+                .sum::<usize>();
+        }
+        let per_spectrum = flagged_bins as f64 / n_seeds as f64;
+        assert!(
+            spectra_with_peaks <= 22,
+            "fc/fs {fc_over_fs}, {n_windows} windows: {spectra_with_peaks} of {n_seeds}"
+        );
+        assert!(
+            (0.85..=1.12).contains(&per_spectrum),
+            "fc/fs {fc_over_fs}, {n_windows} windows: {per_spectrum} flagged bins per spectrum"
+        );
+    }
+}
+
+#[track_caller]
+fn check_exponential_exceedance(window_len: usize, s: f64) {
+    // Renyi (1953) representation of exponential order statistics (David & Nagaraja, Order
+    // Statistics, 3rd ed. 2003, sec. 2.5): the j-th smallest of m' Exp(1) draws is
+    // sum_{i=1}^{j} E_i / (m' - i + 1), so for an independent X ~ Exp(1)
+    // P(X > s Y_(j)) = E[exp(-s Y_(j))] = prod_{i=1}^{j} (m' - i + 1) / (m' - i + 1 + s).
+    let others = window_len - 1;
+    let rank = window_len / 2 + 1;
+    let exact: f64 = (1..=rank)
+        .map(|i| {
+            let r = (others - i + 1) as f64;
+            (r / (r + s)).ln()
+        })
+        .sum();
+    let (closed, slope) = peaks::ln_exceedance_exponential(others, rank, s.ln());
+    let (quadrature, quadrature_slope) =
+        peaks::ln_exceedance_quadrature(1.0, std::f64::consts::LN_2, others, rank, s.ln());
+    assert!((closed - exact).abs() < 1e-9, "{closed} vs {exact}");
+    assert!((quadrature - exact).abs() < 1e-6, "{quadrature} vs {exact}");
+    // d ln p / d ln s = -s sum_i 1 / (m' - i + 1 + s) from the same product.
+    let exact_slope: f64 = -(1..=rank)
+        .map(|i| s / ((others - i + 1) as f64 + s))
+        .sum::<f64>();
+    assert!(
+        (slope - exact_slope).abs() < 1e-8,
+        "{slope} vs {exact_slope}"
+    );
+    assert!(
+        (quadrature_slope - exact_slope).abs() < 1e-5,
+        "{quadrature_slope} vs {exact_slope}"
+    );
+}
+
+#[test]
+fn peak_threshold_tail_matches_the_renyi_product_for_exponential_ordinates() {
+    check_exponential_exceedance(16, 5.0);
+    check_exponential_exceedance(31, 19.6);
+    check_exponential_exceedance(31, 40.0);
+    check_exponential_exceedance(100, 25.0);
+    check_exponential_exceedance(820, 20.0);
+}
+
+#[test]
+fn peak_threshold_tail_matches_monte_carlo_for_averaged_ordinates() {
+    // Independent check of the quadrature for Gamma(4, 4) ordinates (4 averaged segments):
+    // draw a window of 31 ordinates, take its median as the code does (the bin under test
+    // included), and count how often the test ordinate exceeds s times the median.
+    use rand_distr::{Distribution, Gamma as GammaDist};
+    let n = 4.0;
+    let window_len = 31;
+    let median = statrs::distribution::ContinuousCDF::inverse_cdf(
+        &statrs::distribution::Gamma::new(n, n).expect("valid"),
+        0.5,
+    );
+    let s: f64 = 3.6;
+    let (ln_p, _) = peaks::ln_exceedance_quadrature(n, median, window_len - 1, 16, s.ln());
+    let p = ln_p.exp();
+    assert!((2e-4..5e-3).contains(&p), "p = {p}");
+    let gamma = GammaDist::new(n, 1.0 / n).expect("valid");
+    let mut rng = generator(77);
+    let n_draws = 400_000;
+    let mut hits = 0usize;
+    let mut window = vec![0.0; window_len];
+    for _ in 0..n_draws {
+        for v in &mut window {
+            *v = gamma.sample(&mut rng);
+        }
+        let x = window[0];
+        let (_, m, _) = window.select_nth_unstable_by(window_len / 2, f64::total_cmp);
+        if x > s * *m {
+            hits += 1;
+        }
+    }
+    // Binomial count: expected n_draws p, standard deviation sqrt(n_draws p); allow 4.5 of them.
+    let expected = n_draws as f64 * p;
+    assert!(
+        (hits as f64 - expected).abs() < 4.5 * expected.sqrt(),
+        "hits {hits}, expected {expected}"
+    );
+}
+
 /// Reads a two-column CSV fixture (header line, then `frequency_hz,psd` rows).
 fn read_pairs(text: &str) -> Vec<(f64, f64)> {
     text.lines()
