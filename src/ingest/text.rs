@@ -424,21 +424,9 @@ impl Table {
             pos: 0,
             line: head_cursor.line,
         };
-        let finish_tail = |cursor: &mut Cursor<'_>, end_line: usize| {
-            cursor.pos = cursor.bytes.len();
-            cursor.line = end_line;
-        };
-        match tail_rows {
-            // A blank line ended the first half: the second must be blank too, which `scan`
-            // decides; the speculative rows are not needed.
-            _ if self.trailing_blank.is_some() => {
-                self.scan(file, &mut tail_cursor)?;
-                finish_tail(cursor, tail_cursor.line);
-            }
-            Ok((outcome, tail_columns, end_line)) => {
+        let end_line = match tail_rows {
+            Ok((outcome, tail_columns, end_line)) if self.trailing_blank.is_none() => {
                 self.trailing_blank = outcome?;
-                let first_row_line = tail_line;
-                let n_new = tail_columns.first().map_or(0, Vec::len);
                 let time_idx = self.time.as_ref().map(|(idx, _)| *idx);
                 for (col_idx, (column, new)) in
                     self.columns.iter_mut().zip(&tail_columns).enumerate()
@@ -449,19 +437,22 @@ impl Table {
                 }
                 if let Some((col_idx, check)) = self.time.as_mut() {
                     if let Some(times) = tail_columns.get(*col_idx) {
-                        check.feed(times, first_row_line);
+                        check.feed(times, tail_line);
                     }
                 }
-                self.n_rows += n_new;
-                finish_tail(cursor, end_line);
+                self.n_rows += tail_columns.first().map_or(0, Vec::len);
+                end_line
             }
-            // The scan itself cannot panic short of a bug; scan again here rather than lose
-            // the piece.
-            Err(_) => {
+            // A blank line ended the first half: the second must be blank too, which `scan`
+            // decides, so the speculative rows are not needed. (Or the speculative scan
+            // panicked, which only a bug can make it do: scan again rather than lose the piece.)
+            _ => {
                 self.scan(file, &mut tail_cursor)?;
-                finish_tail(cursor, tail_cursor.line);
+                tail_cursor.line
             }
-        }
+        };
+        cursor.pos = cursor.bytes.len();
+        cursor.line = end_line;
         Ok(())
     }
 
