@@ -806,10 +806,14 @@ fn histogram(samples: &[f64], mean: f64, variance: f64) -> Histogram {
     let lo = -4.5 * sd;
     let width = 9.0 * sd / n_bins as f64;
     let mut counts = vec![0u64; n_bins];
+    // For t >= 0 truncation is floor, and floor(t) < n_bins exactly when t < n_bins, so the cast
+    // bins exactly as `floor` would, without a call to the runtime's `floor` per sample (not an
+    // instruction on the default x86-64 target; it was 5 % of a 2^16 calibration). NaN fails
+    // both comparisons.
     for &x in samples {
-        let idx = ((x - mean - lo) / width).floor();
-        if idx >= 0.0 && idx < n_bins as f64 {
-            counts[idx as usize] += 1;
+        let t = (x - mean - lo) / width;
+        if t >= 0.0 && t < n_bins as f64 {
+            counts[t as usize] += 1;
         }
     }
     let centres: Vec<f64> = (0..n_bins)
