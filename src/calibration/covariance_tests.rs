@@ -209,13 +209,8 @@ fn analytic_log_gradient_of_the_aliased_lorentzian_matches_central_differences()
             s,
             "value and value_and_log_gradient agree at {f}"
         );
-        for j in 0..2 {
-            let mut t = theta.clone();
-            t[j] = theta[j] + h;
-            let up = model.one_sided_psd(f, &t).ln();
-            t[j] = theta[j] - h;
-            let down = model.one_sided_psd(f, &t).ln();
-            let numeric = (up - down) / (2.0 * h);
+        let numeric_gradient = numeric_log_gradient(&model, f, &theta, h);
+        for (j, &numeric) in numeric_gradient.iter().enumerate() {
             assert!(
                 (dlns[j] - numeric).abs() <= 1e-7,
                 "d ln S / d theta_{j} at {f} Hz: {} vs {numeric}",
@@ -308,15 +303,7 @@ fn variance_of_the_spectral_parameters_is_the_inverse_fisher_information() {
     let k_hi = (band.1 * record_length_s).floor() as usize;
     for k in k_lo..=k_hi {
         let f = k as f64 / record_length_s;
-        let mut grad = [0.0; 2];
-        for j in 0..2 {
-            let mut t = theta.clone();
-            t[j] = theta[j] + h;
-            let up = model.one_sided_psd(f, &t).ln();
-            t[j] = theta[j] - h;
-            let down = model.one_sided_psd(f, &t).ln();
-            grad[j] = (up - down) / (2.0 * h);
-        }
+        let grad = numeric_log_gradient(&model, f, &theta, h);
         for p in 0..2 {
             for q in 0..2 {
                 fisher[p][q] += grad[p] * grad[q];
@@ -364,4 +351,19 @@ fn variance_of_the_log_variance_follows_bartletts_formula() {
         "Var(ln s^2) = {} vs Bartlett {bartlett} (relative {error:.2e})",
         cov[3][3]
     );
+}
+
+/// d ln S(f) / d (theta_0, theta_1) by central differences of step `h`, the check on the
+/// analytic gradient and the Fisher information of the reference.
+fn numeric_log_gradient(model: &SpectrumModel, f: f64, theta: &[f64], h: f64) -> [f64; 2] {
+    let mut grad = [0.0; 2];
+    for (j, slot) in grad.iter_mut().enumerate() {
+        let mut t = theta.to_vec();
+        t[j] = theta[j] + h;
+        let up = model.one_sided_psd(f, &t).ln();
+        t[j] = theta[j] - h;
+        let down = model.one_sided_psd(f, &t).ln();
+        *slot = (up - down) / (2.0 * h);
+    }
+    grad
 }
