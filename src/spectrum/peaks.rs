@@ -4,6 +4,7 @@
 use super::Periodogram;
 use statrs::distribution::{ContinuousCDF, Gamma};
 use statrs::function::gamma::{digamma, gamma_lr, gamma_ur, ln_gamma};
+use std::sync::{Arc, Mutex, MutexGuard, PoisonError};
 
 /// A run of periodogram bins with far more power than the smooth thermal background allows.
 #[derive(Clone, Debug, PartialEq)]
@@ -43,7 +44,28 @@ pub struct NarrowPeak {
 /// thermal spectrum shows any peak. Neighbouring bins share windows and the sparse grid of
 /// medians is interpolated, both of which make the actual rate a little lower (see
 /// `running_background`).
+///
+/// The thresholds depend only on the number of bins and segments and on `false_alarms`; they are
+/// solved once per such key and process (see `STORED_THRESHOLDS`).
 pub fn find_narrow_peaks(periodogram: &Periodogram, false_alarms: f64) -> Vec<NarrowPeak> {
+    narrow_peaks(periodogram, false_alarms, ThresholdSource::Shared)
+}
+
+/// Where `narrow_peaks` takes its thresholds from.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(super) enum ThresholdSource {
+    /// From the process-wide store when an earlier call solved them, else solved and stored.
+    Shared,
+    /// Solved afresh and not stored (the reference the tests compare the store with).
+    #[cfg(test)]
+    Fresh,
+}
+
+pub(super) fn narrow_peaks(
+    periodogram: &Periodogram,
+    false_alarms: f64,
+    source: ThresholdSource,
+) -> Vec<NarrowPeak> {
     let psd = &periodogram.psd;
     let n_bins = psd.len();
     if n_bins < 64 {
@@ -56,13 +78,35 @@ pub fn find_narrow_peaks(periodogram: &Periodogram, false_alarms: f64) -> Vec<Na
     let median_factor = gamma.inverse_cdf(0.5);
     let tail = (false_alarms / n_bins as f64).clamp(1e-300, 0.5);
     let background = running_background(psd, median_factor);
+    let key = (n_bins, periodogram.n_windows, false_alarms.to_bits());
+    let stored = match source {
+        ThresholdSource::Shared => stored_thresholds(key),
+        #[cfg(test)]
+        ThresholdSource::Fresh => None,
+    };
     let mut thresholds = RatioThresholds::new(n, median_factor, tail);
+    if let Some(solved) = &stored {
+        thresholds.solved.extend_from_slice(solved);
+    }
+    // Window lengths change only where the median grid's segments meet, so the threshold of the
+    // previous bin is reused until its length changes.
+    let mut previous: Option<(usize, f64)> = None;
     let limit: Vec<f64> = background
         .level
         .iter()
         .zip(&background.window_len)
-        .map(|(&level, &len)| thresholds.ratio_threshold(len) * level)
+        .map(|(&level, &len)| {
+            let t = match previous {
+                Some((l, t)) if l == len => t,
+                _ => thresholds.ratio_threshold(len),
+            };
+            previous = Some((len, t));
+            t * level
+        })
         .collect();
+    if source == ThresholdSource::Shared && stored.is_none() {
+        store_thresholds(key, thresholds.solved);
+    }
     let background = background.level;
     let df = periodogram.resolution_hz();
     let mut peaks = Vec::new();
@@ -97,6 +141,22 @@ pub fn find_narrow_peaks(periodogram: &Periodogram, false_alarms: f64) -> Vec<Na
         k = last + 1;
     }
     peaks
+}
+
+/// The thresholds a fresh solve gives for this periodogram, in the order solved (for tests of
+/// the store).
+#[cfg(test)]
+pub(super) fn solved_thresholds(periodogram: &Periodogram, false_alarms: f64) -> Vec<(usize, f64)> {
+    let n_bins = periodogram.psd.len();
+    let n = periodogram.n_windows as f64;
+    let median_factor = Gamma::new(n, n).map_or(f64::NAN, |g| g.inverse_cdf(0.5));
+    let tail = (false_alarms / n_bins as f64).clamp(1e-300, 0.5);
+    let background = running_background(&periodogram.psd, median_factor);
+    let mut thresholds = RatioThresholds::new(n, median_factor, tail);
+    for &len in &background.window_len {
+        thresholds.ratio_threshold(len);
+    }
+    thresholds.solved
 }
 
 /// The mains frequency and harmonic number that `f_hz` matches within max(0.5 Hz, 1.5 bins),
@@ -174,8 +234,60 @@ fn running_background(psd: &[f64], median_factor: f64) -> Background {
     Background { level, window_len }
 }
 
-/// Ratio thresholds t(m) for window lengths m, computed on demand and cached within one call
-/// of `find_narrow_peaks`.
+/// Key of the shared threshold store: number of bins, number of averaged segments, and the bits
+/// of the false-alarm level. The sequence of window lengths `running_background` uses depends on
+/// the number of bins alone, and the per-bin tail and the Gamma shape on these three, so the
+/// thresholds solved for a key, in the order solved, are a function of the key.
+pub(super) type ThresholdKey = (usize, usize, u64);
+
+/// Most threshold sets kept; each holds a few dozen (length, threshold) pairs.
+pub(super) const MAX_STORED_THRESHOLD_SETS: usize = 32;
+
+/// Threshold sets solved by earlier calls, most recently used last. Solving them (root finding
+/// over the order-statistic distribution, by quadrature for averaged spectra) costs about as
+/// much as the rest of the peak search, and a service sees the same few record lengths over and
+/// over (common practice: memoisation). Each call stores the whole set it solved, in the order
+/// it solved them, so a later call with the same key uses exactly the thresholds a fresh solve
+/// would give, bit for bit (each solve starts from the previous solution, so the set is stored
+/// whole rather than merged). The lock is held only to look up or store, never while solving.
+static STORED_THRESHOLDS: Mutex<StoredSets> = Mutex::new(Vec::new());
+
+/// One solved set: (rounded window length, ratio threshold) pairs in the order solved.
+type ThresholdSet = Arc<[(usize, f64)]>;
+type StoredSets = Vec<(ThresholdKey, ThresholdSet)>;
+
+pub(super) fn lock_thresholds() -> MutexGuard<'static, StoredSets> {
+    // Every change is a single push, removal or move, so a poisoned lock is taken over.
+    STORED_THRESHOLDS
+        .lock()
+        .unwrap_or_else(PoisonError::into_inner)
+}
+
+/// The thresholds an earlier call solved for `key`, marked as just used.
+pub(super) fn stored_thresholds(key: ThresholdKey) -> Option<ThresholdSet> {
+    let mut sets = lock_thresholds();
+    let idx = sets.iter().position(|(k, _)| *k == key)?;
+    let entry = sets.remove(idx);
+    let solved = Arc::clone(&entry.1);
+    sets.push(entry);
+    Some(solved)
+}
+
+/// Stores the thresholds solved for `key` (unless another call stored them meanwhile), dropping
+/// the least recently used set beyond `MAX_STORED_THRESHOLD_SETS`.
+pub(super) fn store_thresholds(key: ThresholdKey, solved: Vec<(usize, f64)>) {
+    let mut sets = lock_thresholds();
+    if sets.iter().any(|(k, _)| *k == key) {
+        return;
+    }
+    sets.push((key, solved.into()));
+    if sets.len() > MAX_STORED_THRESHOLD_SETS {
+        sets.remove(0);
+    }
+}
+
+/// Ratio thresholds t(m) for window lengths m, solved on demand and kept for the rest of one
+/// call of `find_narrow_peaks` (and, through `store_thresholds`, for later calls).
 ///
 /// Lengths above 40 are rounded down to a geometric grid (steps of 1/8), so at most a few
 /// dozen thresholds are solved for; a shorter window has a higher threshold, so rounding down
@@ -187,8 +299,8 @@ struct RatioThresholds {
     median_factor: f64,
     /// Per-bin false-alarm probability.
     tail: f64,
-    /// Solved (rounded length, threshold) pairs.
-    cache: Vec<(usize, f64)>,
+    /// Solved (rounded length, threshold) pairs, in the order solved.
+    solved: Vec<(usize, f64)>,
     /// The last starting guess for ln s, the previous solution.
     ln_s_guess: f64,
 }
@@ -200,7 +312,7 @@ impl RatioThresholds {
             shape,
             median_factor,
             tail,
-            cache: Vec::new(),
+            solved: Vec::new(),
             ln_s_guess: (plain / median_factor).ln(),
         }
     }
@@ -208,12 +320,7 @@ impl RatioThresholds {
     /// Threshold t on P_k / B_k for a background from a window of `window_len` ordinates.
     fn ratio_threshold(&mut self, window_len: usize) -> f64 {
         let len = rounded_window_len(window_len);
-        if let Some(&(l, t)) = self.cache.last()
-            && l == len
-        {
-            return t;
-        }
-        if let Some(&(_, t)) = self.cache.iter().find(|(l, _)| *l == len) {
+        if let Some(&(_, t)) = self.solved.iter().rev().find(|(l, _)| *l == len) {
             return t;
         }
         let ln_s = solve_ln_threshold(
@@ -223,7 +330,7 @@ impl RatioThresholds {
         );
         self.ln_s_guess = ln_s;
         let t = self.median_factor * ln_s.exp();
-        self.cache.push((len, t));
+        self.solved.push((len, t));
         t
     }
 }

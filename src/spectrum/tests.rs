@@ -464,6 +464,76 @@ fn narrow_peak_false_alarm_rate_matches_the_design_on_thermal_spectra() {
     }
 }
 
+#[test]
+fn narrow_peaks_with_stored_thresholds_equal_those_with_thresholds_solved_afresh() {
+    // A thermal record with a 50 Hz line, on one and on four segments: every call after the
+    // first takes its thresholds from the process-wide store, and must flag exactly the bins,
+    // with exactly the ratios, that thresholds solved afresh give. The stored set itself must
+    // equal, bit for bit and in order, the one a fresh solve produces.
+    let fs = 20_000.0;
+    for n_windows in [1, 4] {
+        let mut rng = generator(500 + n_windows as u64);
+        let mut x = ou_series(600.0, 1.0, fs, 1 << 15, &mut rng);
+        for (j, v) in x.iter_mut().enumerate() {
+            *v += 0.3 * (2.0 * PI * 50.0 * j as f64 / fs).sin();
+        }
+        let pg = periodogram(&x, fs, n_windows).expect("long enough");
+        let fresh = peaks::narrow_peaks(&pg, 0.01, peaks::ThresholdSource::Fresh);
+        assert!(
+            fresh.iter().any(|p| p.mains == Some((50.0, 1))),
+            "{n_windows} windows: {fresh:?}"
+        );
+        for call in 0..3 {
+            let shared = peaks::narrow_peaks(&pg, 0.01, peaks::ThresholdSource::Shared);
+            assert_eq!(shared, fresh, "{n_windows} windows, call {call}");
+        }
+        let key = (pg.psd.len(), pg.n_windows, 0.01f64.to_bits());
+        let stored = peaks::stored_thresholds(key).expect("stored by the shared calls");
+        let solved_afresh = peaks::solved_thresholds(&pg, 0.01);
+        assert!(!solved_afresh.is_empty());
+        assert_eq!(stored.len(), solved_afresh.len(), "{n_windows} windows");
+        for (a, b) in stored.iter().zip(&solved_afresh) {
+            assert_eq!(a.0, b.0, "{n_windows} windows: lengths");
+            assert_eq!(
+                a.1.to_bits(),
+                b.1.to_bits(),
+                "{n_windows} windows, length {}",
+                a.0
+            );
+        }
+    }
+}
+
+#[test]
+fn the_threshold_store_keeps_a_bounded_number_of_sets_and_drops_the_least_recently_used() {
+    // Keys with bin counts no periodogram here has, so other tests' sets are only evicted
+    // (which costs them a fresh solve, never a different result).
+    let key = |i: usize| (usize::MAX - i, 1, 0.5f64.to_bits());
+    let extra = peaks::MAX_STORED_THRESHOLD_SETS + 8;
+    for i in 0..extra {
+        peaks::store_thresholds(key(i), vec![(i, i as f64)]);
+        // Key 0 stays in use throughout, so it must survive.
+        assert!(
+            peaks::stored_thresholds(key(0)).is_some(),
+            "after storing key {i}"
+        );
+    }
+    assert!(peaks::lock_thresholds().len() <= peaks::MAX_STORED_THRESHOLD_SETS);
+    assert_eq!(
+        peaks::stored_thresholds(key(0)).as_deref(),
+        Some(&[(0, 0.0)][..])
+    );
+    assert!(
+        peaks::stored_thresholds(key(1)).is_none(),
+        "the oldest unused set is dropped"
+    );
+    let last = extra - 1;
+    assert_eq!(
+        peaks::stored_thresholds(key(last)).as_deref(),
+        Some(&[(last, last as f64)][..])
+    );
+}
+
 #[track_caller]
 fn check_exponential_exceedance(window_len: usize, s: f64) {
     // Renyi (1953) representation of exponential order statistics (David & Nagaraja, Order
