@@ -268,6 +268,7 @@ impl LagCosines {
     }
 
     /// g at the next grid point.
+    #[allow(clippy::suboptimal_flops)]
     fn weighted_sum(&mut self) -> f64 {
         let idx = self.next_idx;
         let reseed = idx % RESEED_INTERVAL as u64 == 0;
@@ -277,9 +278,13 @@ impl LagCosines {
             if reseed {
                 (*sin, *cos) = Self::phase(idx.wrapping_mul(*lag), self.n_grid).sin_cos();
             }
-            g = weight.mul_add(*cos, g);
-            let next_cos = cos.mul_add(*cr, -(*sin * *sr));
-            *sin = sin.mul_add(*cr, *cos * *sr);
+            // Plain products and sums, not mul_add: without FMA among the compile-time target
+            // features every mul_add is a call into a library fma (about 5 % of a 2^16-sample
+            // calibration in a perf profile); the error bound above holds either way (checked in
+            // the tests).
+            g += *weight * *cos;
+            let next_cos = *cos * *cr - *sin * *sr;
+            *sin = *sin * *cr + *cos * *sr;
             *cos = next_cos;
         }
         g
