@@ -678,3 +678,39 @@ fn blocked_autocovariance_equals_the_direct_sum_on_long_records() {
         }
     }
 }
+
+#[test]
+fn compensated_sum_recovers_what_cancellation_hides_from_a_plain_sum() {
+    // Neumaier's example: 1 + 1e100 + 1 - 1e100 = 2 exactly, where a plain sum gives 0, in every
+    // rotation of the order.
+    let values = [1.0, 1e100, 1.0, -1e100];
+    for shift in 0..values.len() {
+        let rotated: Vec<f64> = (0..values.len())
+            .map(|i| values[(i + shift) % values.len()])
+            .collect();
+        assert_eq!(compensated_sum(rotated.iter().copied()), 2.0, "{rotated:?}");
+    }
+    assert_eq!(compensated_sum(std::iter::empty()), 0.0);
+    assert_eq!(compensated_sum([3.5]), 3.5);
+}
+
+#[test]
+fn compensated_sum_of_a_long_record_equals_the_exact_sum_rounded_once() {
+    // Oracle: exact integer arithmetic. Every value is an integer multiple of 2^-30 below 2^53
+    // units, so the exact sum is an integer (in i128) times 2^-30; the compensated sum of 2^20
+    // such values with a large common offset must equal that exact sum to within one unit in
+    // the last place, where a plain running sum drifts by many.
+    let unit = (-30f64).exp2();
+    let n = 1usize << 20;
+    let ticks = |i: usize| 1_000_000i64 * (1 << 30) + ((i * 7919) % 1000) as i64;
+    let exact_ticks: i128 = (0..n).map(|i| i128::from(ticks(i))).sum();
+    let exact = exact_ticks as f64 * unit;
+    let sum = compensated_sum((0..n).map(|i| ticks(i) as f64 * unit));
+    let ulp = exact.abs() * f64::EPSILON;
+    assert!((sum - exact).abs() <= ulp, "{sum} vs exact {exact}");
+    let plain: f64 = (0..n).map(|i| ticks(i) as f64 * unit).sum();
+    assert!(
+        (plain - exact).abs() > 4.0 * ulp,
+        "the plain sum was expected to drift (it did not, so this test shows nothing): {plain}"
+    );
+}
