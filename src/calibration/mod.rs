@@ -750,8 +750,9 @@ pub fn default_windows(n_samples: usize) -> usize {
 
 /// Most lines removed from one axis.
 const MAX_LINES: usize = 10;
-/// Work budget of line removal in sample-evaluations (a line costs about (6 n_windows + 63) N);
-/// past it the lines stay in and a finding says so.
+/// Work budget of line removal in sample-evaluations (a line costs about (6 n_windows + 32) N:
+/// the grid scan, a dozen or so evaluations of Brent's method, the final fit and the
+/// subtraction); past it the lines stay in and a finding says so.
 const LINE_BUDGET: f64 = 6e8;
 
 /// Fits and subtracts the sinusoids behind the narrow peaks. Returns the cleaned samples (or
@@ -766,7 +767,7 @@ fn remove_lines(
         return (None, Vec::new(), 0);
     }
     let n = samples.len() as f64;
-    let per_line = 6.0f64.mul_add(periodogram.n_windows as f64, 63.0) * n;
+    let per_line = 6.0f64.mul_add(periodogram.n_windows as f64, 32.0) * n;
     let affordable = ((LINE_BUDGET / per_line).floor() as usize).min(MAX_LINES);
     let mut strongest: Vec<&NarrowPeak> = peaks.iter().collect();
     strongest.sort_by(|a, b| b.excess_power.total_cmp(&a.excess_power));

@@ -732,6 +732,57 @@ fn harmonic_sums_match_direct_trigonometric_sums() {
 }
 
 #[test]
+fn subtracting_a_line_matches_direct_subtraction_with_sin_cos_at_every_sample() {
+    // Reference: y_j - (a cos(w j) + b sin(w j)) with `sin_cos` at every sample (the obviously
+    // correct form), for lengths that are not multiples of the lane count or of the
+    // resynchronisation interval, and two lines at once.
+    use rand_distr::{Distribution, StandardNormal};
+    let fs = 50_000.0;
+    let lines = [
+        SpectralLine {
+            frequency_hz: 8294.1,
+            amplitude: 0.0,
+            cos_coefficient: 0.7,
+            sin_coefficient: -1.3,
+        },
+        SpectralLine {
+            frequency_hz: 49.97,
+            amplitude: 0.0,
+            cos_coefficient: -2.0,
+            sin_coefficient: 0.25,
+        },
+    ];
+    // sum over lines of w (|a| + |b|), rad per sample times signal units.
+    let phase_weight: f64 = lines
+        .iter()
+        .map(|l| {
+            2.0 * PI * l.frequency_hz / fs * (l.cos_coefficient.abs() + l.sin_coefficient.abs())
+        })
+        .sum();
+    for n in [1usize, 3, 1023, 1029, 100_003] {
+        let mut rng = generator(n as u64 + 9);
+        let y: Vec<f64> = (0..n).map(|_| StandardNormal.sample(&mut rng)).collect();
+        let mut fast = y.clone();
+        subtract_lines(&mut fast, fs, &lines);
+        for (j, (&f, &orig)) in fast.iter().zip(&y).enumerate() {
+            let mut direct = orig;
+            for line in &lines {
+                let w = 2.0 * PI * line.frequency_hz / fs;
+                let (s, c) = (w * j as f64).sin_cos();
+                direct -= line.cos_coefficient * c + line.sin_coefficient * s;
+            }
+            // Both forms inherit the rounding of the phase w j (half an ulp of w j, times the
+            // coefficients): that, plus 1e-13 for the rotations, is the tolerance.
+            let tol = 1e-13 + 4.0 * f64::EPSILON * phase_weight * j as f64;
+            assert!(
+                (f - direct).abs() <= tol,
+                "n {n}, sample {j}: {f} vs {direct}"
+            );
+        }
+    }
+}
+
+#[test]
 fn a_sinusoid_off_the_frequency_grid_is_found_and_removed() {
     // Exact: a pure sinusoid is removed to rounding by the least-squares fit at its frequency,
     // even between Fourier frequencies; on top of OU noise its amplitude and frequency are
