@@ -47,14 +47,77 @@ fn is_sha256_hex(s: &str) -> bool {
     s.len() == 64 && s.bytes().all(|b| matches!(b, b'0'..=b'9' | b'a'..=b'f'))
 }
 
+/// Age past which a temporary upload file is taken to be left over from a process that died
+/// (a crash, a kill, a power cut) and is deleted when a service opens the folder. Far longer
+/// than any upload takes, so that with several replicas sharing the folder one that starts
+/// never deletes another's upload in flight (common practice: sweep by age, not by owner).
+pub const STALE_TEMPORARY_AGE: std::time::Duration = std::time::Duration::from_secs(24 * 3600);
+
+/// Prefix of the temporary upload files; the sweep touches nothing else in `tmp/`.
+const TEMPORARY_PREFIX: &str = "upload-";
+
 impl Blobs {
-    /// The blob folder under `root`; creates `recordings/` and `tmp/` when missing.
+    /// The blob folder under `root`; creates `recordings/` and `tmp/` when missing and deletes
+    /// temporary upload files older than `STALE_TEMPORARY_AGE` (see `sweep_stale_temporaries`).
     pub fn open(root: &Path) -> std::io::Result<Self> {
         std::fs::create_dir_all(root.join("recordings"))?;
         std::fs::create_dir_all(root.join("tmp"))?;
-        Ok(Blobs {
+        let blobs = Blobs {
             root: root.to_path_buf(),
-        })
+        };
+        match blobs.sweep_stale_temporaries(STALE_TEMPORARY_AGE, std::time::SystemTime::now()) {
+            Ok(0) => {}
+            Ok(n) => tracing::info!(
+                removed = n,
+                folder = %blobs.root.join("tmp").display(),
+                "removed temporary upload files left over from an earlier process"
+            ),
+            // A sweep that fails costs disk space, never data: say so and go on.
+            Err(e) => tracing::warn!(
+                error = %e,
+                folder = %blobs.root.join("tmp").display(),
+                "could not sweep old temporary upload files"
+            ),
+        }
+        Ok(blobs)
+    }
+
+    /// Deletes the temporary upload files in `tmp/` last modified more than `max_age` before
+    /// `now`, and returns how many it deleted. Committed blobs are never touched (they live in
+    /// `recordings/`), nor files without the upload prefix; a file that vanishes meanwhile (its
+    /// upload finished or another replica swept it) is skipped.
+    pub fn sweep_stale_temporaries(
+        &self,
+        max_age: std::time::Duration,
+        now: std::time::SystemTime,
+    ) -> std::io::Result<usize> {
+        let mut removed = 0;
+        for entry in std::fs::read_dir(self.root.join("tmp"))? {
+            let entry = entry?;
+            let is_upload = entry
+                .file_name()
+                .to_str()
+                .is_some_and(|name| name.starts_with(TEMPORARY_PREFIX));
+            let Ok(meta) = entry.metadata() else {
+                continue;
+            };
+            if !is_upload || !meta.is_file() {
+                continue;
+            }
+            let stale = meta
+                .modified()
+                .ok()
+                .and_then(|modified| now.duration_since(modified).ok())
+                .is_some_and(|age| age > max_age);
+            if stale {
+                match std::fs::remove_file(entry.path()) {
+                    Ok(()) => removed += 1,
+                    Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+                    Err(e) => return Err(e),
+                }
+            }
+        }
+        Ok(removed)
     }
 
     /// The folder holding the blobs and the temporary files.
@@ -71,7 +134,7 @@ impl Blobs {
     /// Starts a new temporary file for an upload.
     pub async fn writer(&self) -> std::io::Result<BlobWriter> {
         let temp = tempfile::Builder::new()
-            .prefix("upload-")
+            .prefix(TEMPORARY_PREFIX)
             .tempfile_in(self.root.join("tmp"))?;
         let (file, path) = temp.into_parts();
         Ok(BlobWriter {
@@ -143,5 +206,50 @@ impl BlobWriter {
             size_bytes: self.size_bytes,
             path: self.path,
         })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::time::{Duration, SystemTime};
+
+    fn file_with_age(path: &Path, age: Duration) {
+        let file = std::fs::File::create(path).expect("create");
+        file.set_modified(SystemTime::now() - age)
+            .expect("set mtime");
+    }
+
+    #[test]
+    fn opening_the_folder_deletes_only_old_temporary_uploads() {
+        let root = tempfile::tempdir().expect("temp dir");
+        Blobs::open(root.path()).expect("first open");
+        let tmp = root.path().join("tmp");
+        let day = Duration::from_secs(24 * 3600);
+        // Left over from a crash two days ago: goes.
+        file_with_age(&tmp.join("upload-old"), 2 * day);
+        // Another replica's upload in flight (a minute old): stays.
+        file_with_age(&tmp.join("upload-fresh"), Duration::from_secs(60));
+        // Not an upload temporary, however old: stays.
+        file_with_age(&tmp.join("notes.txt"), 10 * day);
+        // A committed blob, however old: stays.
+        let blob_dir = root.path().join("recordings").join("ab");
+        std::fs::create_dir_all(&blob_dir).expect("blob dir");
+        let blob = blob_dir.join(format!("ab{}", "0".repeat(62)));
+        file_with_age(&blob, 10 * day);
+
+        let blobs = Blobs::open(root.path()).expect("second open");
+        assert!(!tmp.join("upload-old").exists());
+        assert!(tmp.join("upload-fresh").exists());
+        assert!(tmp.join("notes.txt").exists());
+        assert!(blob.exists());
+        assert_eq!(blobs.file_counts().expect("counts"), (1, 2));
+        // Nothing is left to sweep; a sweep as of three days ahead takes the fresh upload too.
+        let now = SystemTime::now();
+        assert_eq!(blobs.sweep_stale_temporaries(day, now).expect("sweep"), 0);
+        let later = now + 3 * day;
+        assert_eq!(blobs.sweep_stale_temporaries(day, later).expect("sweep"), 1);
+        assert!(!tmp.join("upload-fresh").exists());
+        assert!(tmp.join("notes.txt").exists());
     }
 }
