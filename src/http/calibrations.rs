@@ -5,8 +5,8 @@ use super::AppState;
 use super::auth::Lab;
 use super::problem::AppError;
 use super::wire::{
-    API, AxisHistory, CalibrationDocument, CalibrationPage, HistoryPoint, TrapHistory,
-    stored_report,
+    API, AxisHistory, CalibrationDocument, CalibrationPage, HistoryPoint, TrapEntry, TrapHistory,
+    TrapList, history_url, stored_report,
 };
 use crate::store::ListFilter;
 use axum::Json;
@@ -52,10 +52,14 @@ fn query(raw: Option<&str>, known: &[&str]) -> Result<Vec<(String, String)>, App
             return Err(AppError::bad_field(
                 "unknown-field",
                 k,
-                format!(
-                    "query parameter `{k}` is not known here; known parameters are: {}",
-                    known.join(", ")
-                ),
+                if known.is_empty() {
+                    format!("query parameter `{k}` is not known here; this endpoint takes none")
+                } else {
+                    format!(
+                        "query parameter `{k}` is not known here; known parameters are: {}",
+                        known.join(", ")
+                    )
+                },
             ));
         }
     }
@@ -284,6 +288,41 @@ pub(crate) async fn plots(
         HeaderValue::from_static("application/json"),
     );
     Ok(response)
+}
+
+/// Every instrument and trap of the lab that has calibrations: count, time span, history link.
+#[utoipa::path(
+    get,
+    path = "/api/v1/instruments",
+    tag = "history",
+    responses(
+        (status = 200, body = TrapList),
+        (status = 400, body = super::problem::Problem, content_type = "application/problem+json"),
+    ),
+    security((), ("bearer" = []))
+)]
+pub(crate) async fn traps(
+    State(state): State<AppState>,
+    Lab(lab): Lab,
+    RawQuery(raw): RawQuery,
+) -> Result<Json<TrapList>, AppError> {
+    // No parameters; an unknown one is refused like everywhere else.
+    query(raw.as_deref(), &[])?;
+    let traps = state
+        .store()
+        .traps(&lab)
+        .await?
+        .into_iter()
+        .map(|t| TrapEntry {
+            history: history_url(&t.instrument, &t.trap),
+            instrument: t.instrument,
+            trap: t.trap,
+            calibrations: t.calibrations,
+            first_at_ms: t.first_at_ms,
+            latest_at_ms: t.latest_at_ms,
+        })
+        .collect();
+    Ok(Json(TrapList { traps }))
 }
 
 /// The history of one trap: consensus stiffness, sensitivity and corner frequency per axis.

@@ -197,6 +197,7 @@ pub fn app(state: AppState) -> Router {
         .route("/calibrations/{id}", get(calibrations::one))
         .route("/calibrations/{id}/recording", get(calibrations::recording))
         .route("/calibrations/{id}/plots", get(calibrations::plots))
+        .route("/instruments", get(calibrations::traps))
         .route(
             "/instruments/{instrument}/traps/{trap}/history",
             get(calibrations::history),

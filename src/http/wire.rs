@@ -125,6 +125,26 @@ pub struct TrapHistory {
     pub axes: Vec<AxisHistory>,
 }
 
+/// One trap of the lab, with how many calibrations it has and over what time.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct TrapEntry {
+    pub instrument: String,
+    pub trap: String,
+    /// Number of stored calibrations.
+    pub calibrations: i64,
+    /// When the first and the latest were stored, ms since the Unix epoch.
+    pub first_at_ms: i64,
+    pub latest_at_ms: i64,
+    /// The trap's history.
+    pub history: String,
+}
+
+/// Every trap of the lab that has calibrations, by instrument then trap.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct TrapList {
+    pub traps: Vec<TrapEntry>,
+}
+
 /// The health check's answer.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
 pub struct Health {

@@ -116,6 +116,18 @@ pub struct StoredCalibration {
     pub result_json: String,
 }
 
+/// One trap of a lab, as the trap list shows it.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct TrapSummary {
+    pub instrument: String,
+    pub trap: String,
+    /// Number of stored calibrations of this trap.
+    pub calibrations: i64,
+    /// When the first and the latest of them were stored, ms since the Unix epoch.
+    pub first_at_ms: i64,
+    pub latest_at_ms: i64,
+}
+
 /// Filters and page position of a listing. Results are newest first.
 #[derive(Clone, Debug, Default, PartialEq)]
 pub struct ListFilter {
@@ -416,6 +428,34 @@ impl Store {
         filter: &ListFilter,
     ) -> Result<Vec<StoredCalibration>, StoreError> {
         self.select(lab, filter, true).await
+    }
+
+    /// Every (instrument, trap) of a lab that has calibrations, with their count and time
+    /// span, sorted by instrument then trap, byte-wise: the order is the same on SQLite and
+    /// PostgreSQL, whose text collations differ, because the sort is done here.
+    pub async fn traps(&self, lab: &str) -> Result<Vec<TrapSummary>, StoreError> {
+        let rows = sqlx::query(
+            "SELECT instrument, trap, COUNT(*) AS n, MIN(created_at_ms) AS first_ms, \
+             MAX(created_at_ms) AS latest_ms FROM calibrations WHERE lab = $1 \
+             GROUP BY instrument, trap",
+        )
+        .bind(lab)
+        .fetch_all(&self.pool)
+        .await?;
+        let mut traps = rows
+            .iter()
+            .map(|row| {
+                Ok(TrapSummary {
+                    instrument: row.try_get("instrument")?,
+                    trap: row.try_get("trap")?,
+                    calibrations: row.try_get("n")?,
+                    first_at_ms: row.try_get("first_ms")?,
+                    latest_at_ms: row.try_get("latest_ms")?,
+                })
+            })
+            .collect::<Result<Vec<_>, StoreError>>()?;
+        traps.sort_by(|a, b| (&a.instrument, &a.trap).cmp(&(&b.instrument, &b.trap)));
+        Ok(traps)
     }
 
     /// A lab's calibrations of one trap in a time range, oldest first (at most `limit`).

@@ -282,6 +282,78 @@ async fn history_gives_kappa_beta_and_fc_per_axis_oldest_first(backend: Backend)
     server.stop().await;
 }
 
+async fn trap_list_counts_each_trap_of_the_lab_in_byte_order(backend: Backend) {
+    let db = TestDb::new(backend).await;
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let server = TestServer::start(&db, options()).await;
+    let (status, empty) = get_json(&server, "/api/v1/instruments", None).await;
+    assert_eq!((status, &empty["traps"]), (200, &serde_json::json!([])));
+    // "Bench-B" sorts before "bench-a" byte-wise ('B' < 'b'); a locale-aware collation (which
+    // PostgreSQL uses when its cluster has, say, an en_US locale; the one here is C.UTF-8) would
+    // put it after: the order must not depend on the database's collation.
+    let uploads = [
+        ("bench-a", "t1", 41),
+        ("Bench-B", "t9", 42),
+        ("bench-a", "t1", 43),
+        ("bench-a", "t 2", 44),
+    ];
+    let mut docs = Vec::new();
+    for (instrument, trap, seed) in uploads {
+        let file = demo_csv(dir.path(), &format!("traps{seed}.csv"), seed);
+        let (status, doc) = upload(
+            &server,
+            &file,
+            &[("instrument", instrument), ("trap", trap)],
+            None,
+        )
+        .await;
+        assert_eq!(status, 201, "{doc}");
+        docs.push(doc);
+        tokio::time::sleep(std::time::Duration::from_millis(5)).await;
+    }
+    let at = |i: usize| docs[i]["created_at_ms"].as_i64().unwrap_or(-1);
+    let (status, list) = get_json(&server, "/api/v1/instruments", None).await;
+    assert_eq!(status, 200, "{list}");
+    let traps = list["traps"].as_array().cloned().unwrap_or_default();
+    let summary: Vec<(String, String, i64, i64, i64)> = traps
+        .iter()
+        .map(|t| {
+            (
+                text(t, "instrument"),
+                text(t, "trap"),
+                t["calibrations"].as_i64().unwrap_or(-1),
+                t["first_at_ms"].as_i64().unwrap_or(-1),
+                t["latest_at_ms"].as_i64().unwrap_or(-1),
+            )
+        })
+        .collect();
+    let row = |i: &str, t: &str, n, first, latest| (i.to_string(), t.to_string(), n, first, latest);
+    assert_eq!(
+        summary,
+        vec![
+            row("Bench-B", "t9", 1, at(1), at(1)),
+            row("bench-a", "t 2", 1, at(3), at(3)),
+            row("bench-a", "t1", 2, at(0), at(2)),
+        ]
+    );
+    // Each entry links to the history its calibrations give.
+    for (entry, doc) in traps.iter().zip([&docs[1], &docs[3], &docs[0]]) {
+        assert_eq!(entry["history"], doc["links"]["history"]);
+    }
+    let (status, history) = get_json(&server, &text(&traps[2], "history"), None).await;
+    assert_eq!(status, 200);
+    assert_eq!(
+        history["axes"][0]["points"].as_array().map(Vec::len),
+        Some(2)
+    );
+    let (status, problem) = get_json(&server, "/api/v1/instruments?limit=5", None).await;
+    assert_eq!(
+        (status, problem["code"].as_str()),
+        (400, Some("unknown-field"))
+    );
+    server.stop().await;
+}
+
 /// One bad upload: the request parts and what must come back.
 struct BadCase {
     what: &'static str,
@@ -898,6 +970,10 @@ async fn tokens_confine_each_lab_to_its_own_calibrations(backend: Backend) {
     )
     .await;
     assert_eq!(history_b["axes"], serde_json::json!([]));
+    let (_, traps_b) = get_json(&server, "/api/v1/instruments", Some(&lab_b)).await;
+    assert_eq!(traps_b["traps"], serde_json::json!([]));
+    let (_, traps_a) = get_json(&server, "/api/v1/instruments", Some(&lab_a)).await;
+    assert_eq!(traps_a["traps"].as_array().map(Vec::len), Some(1));
     // The same upload by lab b is lab b's own calibration, not lab a's.
     let (status, doc_b) = upload(&server, &file, &LABELS, Some(&lab_b)).await;
     assert_eq!(status, 201);
@@ -1123,6 +1199,7 @@ async fn health_metrics_openapi_and_page_are_served(backend: Backend) {
         "/api/v1/calibrations/{id}",
         "/api/v1/calibrations/{id}/recording",
         "/api/v1/calibrations/{id}/plots",
+        "/api/v1/instruments",
         "/api/v1/instruments/{instrument}/traps/{trap}/history",
         "/healthz",
         "/metrics",
@@ -1274,6 +1351,7 @@ on_both_backends!(
     raw_body_upload_stores_a_new_calibration_with_the_cli_numbers,
     listing_filters_by_instrument_trap_and_time_and_pages,
     history_gives_kappa_beta_and_fc_per_axis_oldest_first,
+    trap_list_counts_each_trap_of_the_lab_in_byte_order,
     bad_uploads_get_their_status_and_problem_and_store_nothing,
     uploads_past_the_limit_are_413_and_store_nothing,
     tokens_confine_each_lab_to_its_own_calibrations,
