@@ -163,6 +163,49 @@ async function getJson(path) {
   return JSON.parse(text);
 }
 
+/**
+ * Click handler of the links to API documents (raw recording, JSON). A plain link cannot carry
+ * the access token, so on a server that wants one the answer would be 401: with a token set,
+ * the document is fetched with the token instead and handed to the browser as a download under
+ * `fileName`; the outcome is written to the status line `[data-link-status]`. Without a token
+ * the link works as a link.
+ */
+function tokenLink(fileName) {
+  return async (event) => {
+    if (!token()) return;
+    event.preventDefault();
+    const a = event.currentTarget;
+    const status = document.querySelector("[data-link-status]");
+    const say = (text, state) => {
+      if (!status) return;
+      status.textContent = text;
+      status.dataset.state = state;
+    };
+    say(`Fetching ${fileName} …`, "busy");
+    let response;
+    try {
+      response = await fetch(a.href, { headers: authHeaders() });
+    } catch (e) {
+      say(`${fileName}: the service cannot be reached (${e.message || e})`, "error");
+      return;
+    }
+    if (!response.ok) {
+      const p = problemFrom(response.status, response.headers.get("content-type") || "", await response.text());
+      say(`${fileName}: ${p.detail || p.title || `status ${response.status}`} (${response.status})`, "error");
+      return;
+    }
+    const blob = await response.blob();
+    const url = URL.createObjectURL(blob);
+    const save = el("a", { href: url, download: fileName, hidden: true });
+    document.body.append(save);
+    save.click();
+    save.remove();
+    setTimeout(() => URL.revokeObjectURL(url), 60_000);
+    if (status) status.dataset.bytes = String(blob.size);
+    say(`Saved ${fileName} (${blob.size.toLocaleString()} bytes, fetched with the access token).`, "done");
+  };
+}
+
 const enc = encodeURIComponent;
 const historyApi = (instrument, trap) => `${API}/instruments/${enc(instrument)}/traps/${enc(trap)}/history`;
 const historyHash = (instrument, trap) => `#/history/${enc(instrument)}/${enc(trap)}`;
@@ -782,10 +825,11 @@ async function showResult(id) {
         el("p", { class: "meta", text: conditions }),
         doc.note ? el("p", { class: "meta" }, "Note: ", doc.note) : null),
       el("ul", { class: "links" },
-        el("li", {}, el("a", { href: doc.links.recording, "data-link": "recording", download: r.input.file_name, text: "Raw recording" })),
-        el("li", {}, el("a", { href: doc.links.self, "data-link": "json", text: "Calibration JSON" })),
-        el("li", {}, el("a", { href: doc.links.plots, "data-link": "plots", text: "Plot data JSON" })),
-        el("li", {}, el("a", { href: historyHash(doc.instrument, doc.trap), "data-link": "history", text: "History of this trap" })))),
+        el("li", {}, el("a", { href: doc.links.recording, "data-link": "recording", download: r.input.file_name, text: "Raw recording", onclick: tokenLink(r.input.file_name) })),
+        el("li", {}, el("a", { href: doc.links.self, "data-link": "json", text: "Calibration JSON", onclick: tokenLink(`calibration-${doc.id}.json`) })),
+        el("li", {}, el("a", { href: doc.links.plots, "data-link": "plots", text: "Plot data JSON", onclick: tokenLink(`plots-${doc.id}.json`) })),
+        el("li", {}, el("a", { href: historyHash(doc.instrument, doc.trap), "data-link": "history", text: "History of this trap" })),
+        el("li", { class: "meta", "data-link-status": "", "aria-live": "polite" }))),
     r.axes.map((axis) => axisCard(axis, r, plots.axes.find((p) => p.axis === axis.axis))),
   );
   finishView(section, `${doc.instrument} · ${doc.trap}`);

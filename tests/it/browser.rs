@@ -1053,6 +1053,111 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn on_a_protected_server_the_document_links_fetch_with_the_page_token() {
+    let _turn = ONE_BROWSER.lock().await;
+    let db = TestDb::new(Backend::Sqlite).await;
+    let server = TestServer::start(
+        &db,
+        ServiceOptions {
+            tokens_required: true,
+            ..options()
+        },
+    )
+    .await;
+    let (_, secret) = server.store.create_token("lab-a").await.expect("token");
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let csv = demo(dir.path(), "two_axes.csv");
+    let mut form = reqwest::multipart::Form::new()
+        .text("instrument", "bench-a")
+        .text("trap", "t1");
+    for (k, v) in csv.fields() {
+        form = form.text(k, v);
+    }
+    form = form.part(
+        "file",
+        reqwest::multipart::Part::bytes(csv.bytes()).file_name(csv.name()),
+    );
+    let response = server
+        .client
+        .post(server.url("/api/v1/calibrations"))
+        .bearer_auth(&secret)
+        .multipart(form)
+        .send()
+        .await
+        .expect("upload");
+    assert_eq!(response.status().as_u16(), 201);
+    let doc: Value = response.json().await.expect("document");
+    let id = doc["id"].as_str().unwrap_or("").to_string();
+    // What the API gives for each link with the token in the header.
+    let mut expected = Vec::new();
+    for link in ["recording", "self", "plots"] {
+        let path = doc["links"][link].as_str().unwrap_or("").to_string();
+        let plain = server
+            .client
+            .get(server.url(&path))
+            .send()
+            .await
+            .expect("GET");
+        assert_eq!(plain.status().as_u16(), 401, "{path} without a token");
+        let body = server
+            .client
+            .get(server.url(&path))
+            .bearer_auth(&secret)
+            .send()
+            .await
+            .expect("GET")
+            .bytes()
+            .await
+            .expect("bytes");
+        expected.push(body.len());
+    }
+    assert_eq!(expected[0], csv.bytes().len());
+
+    let browser = Browser::start().await;
+    browser.goto(&server.url("/")).await;
+    browser
+        .js(
+            "localStorage.setItem('trapwise.page.token/1', arguments[0]);",
+            vec![json!(secret)],
+        )
+        .await;
+    browser
+        .goto(&server.url(&format!("/#/calibrations/{id}")))
+        .await;
+    browser.wait_view("result").await;
+    const CLICK_AND_WAIT: &str = "
+        const status = document.querySelector('#view-result [data-link-status]');
+        status.dataset.state = '';
+        document.querySelector(`#view-result a[data-link=${arguments[0]}]`).click();";
+    const OUTCOME: &str = "
+        const s = document.querySelector('#view-result [data-link-status]');
+        return s && (s.dataset.state === 'done' || s.dataset.state === 'error')
+            ? [s.dataset.state, s.dataset.bytes || '', s.textContent] : null;";
+    for (link, bytes) in ["recording", "json", "plots"].into_iter().zip(&expected) {
+        browser.js(CLICK_AND_WAIT, vec![json!(link)]).await;
+        let outcome = browser.wait_for(&format!("the {link} link"), OUTCOME).await;
+        assert_eq!(outcome[0], "done", "{link}: {outcome}");
+        assert_eq!(outcome[1], json!(bytes.to_string()), "{link}: {outcome}");
+    }
+    // A token the server does not know: the link says why instead of failing silently.
+    browser
+        .js(
+            "localStorage.setItem('trapwise.page.token/1', 'tw_not-a-token');",
+            vec![],
+        )
+        .await;
+    browser.js(CLICK_AND_WAIT, vec![json!("json")]).await;
+    let outcome = browser.wait_for("the refused json link", OUTCOME).await;
+    assert_eq!(outcome[0], "error", "{outcome}");
+    assert!(
+        outcome[2].as_str().unwrap_or("").contains("(401)"),
+        "{outcome}"
+    );
+    browser.close().await;
+    server.stop().await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn history_and_overview_show_every_run_of_each_trap_and_open_their_results() {
     let _turn = ONE_BROWSER.lock().await;
     let (_db, server) = sqlite_server().await;
