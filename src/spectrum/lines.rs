@@ -45,11 +45,7 @@ pub(super) fn harmonic_sums(y: &[f64], w: f64) -> [f64; 5] {
     let (step_sin, step_cos) = (LANES as f64 * w).sin_cos();
     for (block_idx, block) in y.chunks(RESYNC).enumerate() {
         let base = block_idx * RESYNC;
-        let mut c = [0.0f64; LANES];
-        let mut s = [0.0f64; LANES];
-        for lane in 0..LANES {
-            (s[lane], c[lane]) = (w * (base + lane) as f64).sin_cos();
-        }
+        let (mut c, mut s) = lane_phasors(w, base);
         let mut quads = block.chunks_exact(LANES);
         for quad in &mut quads {
             for lane in 0..LANES {
@@ -75,6 +71,17 @@ pub(super) fn harmonic_sums(y: &[f64], w: f64) -> [f64; 5] {
         }
     }
     acc.map(|lanes| lanes.iter().sum())
+}
+
+/// The exact phasors (cos, sin)(w j) of the `LANES` samples j = base, base + 1, ..., from which
+/// the interleaved rotations of `harmonic_sums` and `subtract_lines` start each block.
+fn lane_phasors(w: f64, base: usize) -> ([f64; LANES], [f64; LANES]) {
+    let mut c = [0.0f64; LANES];
+    let mut s = [0.0f64; LANES];
+    for lane in 0..LANES {
+        (s[lane], c[lane]) = (w * (base + lane) as f64).sin_cos();
+    }
+    (c, s)
 }
 
 /// Least-squares amplitude of a sinusoid at angular frequency `w` (rad per sample), and the
@@ -169,8 +176,8 @@ pub fn fit_line(y: &[f64], sample_rate_hz: f64, f0_hz: f64, half_width_hz: f64) 
 /// Subtracts fitted lines from `y` in place.
 ///
 /// The phasor exp(i w j) advances by rotation, four interleaved phasors at a time, and is
-/// recomputed exactly every `RESYNC` samples, as in `harmonic_sums`: a `sin_cos` per sample
-/// and line cost more than the whole fit of the line (common practice for recursive
+/// recomputed exactly every `RESYNC` samples, as in `harmonic_sums`, instead of a `sin_cos` per
+/// sample and line, which costs many times a rotation step (common practice for recursive
 /// oscillators; the agreement with direct `sin_cos` is checked in the tests).
 #[allow(clippy::suboptimal_flops)]
 pub fn subtract_lines(y: &mut [f64], sample_rate_hz: f64, lines: &[SpectralLine]) {
@@ -180,11 +187,7 @@ pub fn subtract_lines(y: &mut [f64], sample_rate_hz: f64, lines: &[SpectralLine]
         let (step_sin, step_cos) = (LANES as f64 * w).sin_cos();
         for (block_idx, block) in y.chunks_mut(RESYNC).enumerate() {
             let base = block_idx * RESYNC;
-            let mut c = [0.0f64; LANES];
-            let mut s = [0.0f64; LANES];
-            for lane in 0..LANES {
-                (s[lane], c[lane]) = (w * (base + lane) as f64).sin_cos();
-            }
+            let (mut c, mut s) = lane_phasors(w, base);
             for quad in block.chunks_mut(LANES) {
                 for (lane, v) in quad.iter_mut().enumerate() {
                     let (cl, sl) = (c[lane], s[lane]);
