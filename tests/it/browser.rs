@@ -14,7 +14,7 @@
 //! `TRAPWISE_CHROMEDRIVER` point at other binaries. The browser tests take turns (one Chromium
 //! at a time) to spare the shared cores.
 
-use crate::support::{Backend, DemoFile, TestDb, TestServer, binary, demo_files, options};
+use crate::support::{Backend, DemoFile, TestDb, TestServer, binary, demo_files, options, upload};
 use fantoccini::{Client, ClientBuilder, Locator};
 use serde_json::{Value, json};
 use std::path::{Path, PathBuf};
@@ -1067,26 +1067,14 @@ async fn on_a_protected_server_the_document_links_fetch_with_the_page_token() {
     let (_, secret) = server.store.create_token("lab-a").await.expect("token");
     let dir = tempfile::tempdir().expect("temporary folder");
     let csv = demo(dir.path(), "two_axes.csv");
-    let mut form = reqwest::multipart::Form::new()
-        .text("instrument", "bench-a")
-        .text("trap", "t1");
-    for (k, v) in csv.fields() {
-        form = form.text(k, v);
-    }
-    form = form.part(
-        "file",
-        reqwest::multipart::Part::bytes(csv.bytes()).file_name(csv.name()),
-    );
-    let response = server
-        .client
-        .post(server.url("/api/v1/calibrations"))
-        .bearer_auth(&secret)
-        .multipart(form)
-        .send()
-        .await
-        .expect("upload");
-    assert_eq!(response.status().as_u16(), 201);
-    let doc: Value = response.json().await.expect("document");
+    let (status, doc) = upload(
+        &server,
+        &csv,
+        &[("instrument", "bench-a"), ("trap", "t1")],
+        Some(&secret),
+    )
+    .await;
+    assert_eq!(status, 201, "{doc}");
     let id = doc["id"].as_str().unwrap_or("").to_string();
     // What the API gives for each link with the token in the header.
     let mut expected = Vec::new();
