@@ -2,8 +2,8 @@
 //! never an error: a recording with findings still gets its numbers, and the findings say how
 //! far to trust them.
 
-use crate::calibration::{Discrepancy, Stiffness};
 use crate::drag;
+use crate::estimate::Estimate;
 use crate::recording::PositionUnit;
 use crate::spectrum::{NarrowPeak, Periodogram, SpectrumFit};
 use statrs::distribution::{ContinuousCDF, Gamma};
@@ -47,7 +47,17 @@ fn finding(code: &'static str, severity: Severity, message: String) -> Finding {
     }
 }
 
-/// What the checks look at, all from one axis.
+/// Two methods whose stiffness estimates differ by `z` combined standard errors, beyond the
+/// limit the consensus uses.
+#[derive(Clone, Debug, PartialEq)]
+pub struct MethodDisagreement {
+    pub first: &'static str,
+    pub second: &'static str,
+    pub z: f64,
+}
+
+/// What the checks look at, all from one axis: plain data, so the findings know nothing of how
+/// the calibration computed it.
 pub struct FindingInputs<'a> {
     pub axis: &'a str,
     pub samples: &'a [f64],
@@ -56,8 +66,10 @@ pub struct FindingInputs<'a> {
     pub periodogram: &'a Periodogram,
     pub spectrum: &'a SpectrumFit,
     pub peaks: &'a [NarrowPeak],
-    pub stiffness: &'a Stiffness,
-    pub discrepancies: &'a [Discrepancy],
+    /// The consensus stiffness, pN/nm.
+    pub consensus: Estimate,
+    /// Pairs of methods whose estimates disagree beyond the consensus's limit.
+    pub disagreements: &'a [MethodDisagreement],
     pub target_relative_precision: f64,
     pub diffusion_theory_m2_per_s: f64,
     pub radius_m: f64,
@@ -88,7 +100,7 @@ pub fn assess(inp: &FindingInputs<'_>) -> Vec<Finding> {
 /// The consensus stiffness is less precise than asked: the relative error of fc scales as
 /// (pi fc T)^-1/2 (Berg-Sorensen & Flyvbjerg 2004), so the needed length scales as the square.
 fn precision(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
-    let rel = inp.stiffness.consensus.relative_se();
+    let rel = inp.consensus.relative_se();
     let target = inp.target_relative_precision;
     if rel.is_finite() && target > 0.0 && rel > target {
         let duration = inp.samples.len() as f64 / inp.sample_rate_hz;
@@ -304,9 +316,8 @@ fn fit_quality(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
 
 fn consistency(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
     let bad: Vec<String> = inp
-        .discrepancies
+        .disagreements
         .iter()
-        .filter(|d| d.z.abs() > crate::calibration::Z_LIMIT)
         .map(|d| {
             format!(
                 "{} vs {} ({:.1} standard errors)",

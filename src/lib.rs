@@ -1,6 +1,6 @@
 //! trapwise calibrates optical traps from recordings of a trapped bead's thermal motion.
 //!
-//! The numerical core (`recording`, `water`, `drag`, `fft`, `spectrum`, `autocorrelation`,
+//! The numerical core (`recording`, `estimate`, `water`, `drag`, `fft`, `spectrum`, `autocorrelation`,
 //! `equipartition`, `calibration`, `findings`, `simulate`) is pure: it takes plain data and
 //! returns plain data, and imports no IO, async or HTTP crate. Around it sit `ingest`
 //! (file formats), `report` (wire types and text summaries), `store` (database and raw
@@ -12,6 +12,7 @@ pub mod cli;
 pub mod config;
 pub mod drag;
 pub mod equipartition;
+pub mod estimate;
 mod fft;
 pub mod findings;
 pub mod http;

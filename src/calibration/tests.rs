@@ -5,8 +5,9 @@
 #![allow(clippy::needless_range_loop)]
 
 use super::*;
-use crate::recording::AxisTrace;
+use crate::recording::{AxisTrace, PositionUnit};
 use crate::simulate::{Disturbances, OuAxis, simulate_axes};
+use std::f64::consts::PI;
 
 const FS: f64 = 20_000.0;
 const KAPPA_PN_PER_NM: f64 = 0.05;

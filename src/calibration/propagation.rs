@@ -1,0 +1,132 @@
+//! Stage four of an axis calibration: from the methods' own estimates (fc, D, tau, variance),
+//! their statistical correlations and the input errors (drag, temperature) to the three
+//! stiffness estimates, their covariance and, for volt data, the sensitivity beta.
+//!
+//! Everything is first order in the logarithms: each ln(kappa) and ln(beta) is a linear
+//! combination of (ln fc, ln D, ln tau, ln var) and of the inputs (ln gamma, ln T), so the
+//! covariance follows by the usual propagation of errors (e.g. JCGM 100:2008, the Guide to the
+//! Expression of Uncertainty in Measurement, section 5.2 on correlated input quantities).
+
+use crate::estimate::Estimate;
+use std::f64::consts::PI;
+
+/// 1 N/m expressed in pN/nm.
+pub(crate) const PN_PER_NM_PER_N_PER_M: f64 = 1e3;
+
+/// The plain numbers propagation needs, SI with the signal unit of the record.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(crate) struct PropagationInputs {
+    /// Spectral corner frequency (Hz) and diffusion coefficient (signal-unit^2/s).
+    pub(crate) corner_frequency_hz: Estimate,
+    pub(crate) diffusion: Estimate,
+    /// Relaxation time of the autocorrelation method, s.
+    pub(crate) relaxation_time_s: Estimate,
+    /// Variance of the record, signal-unit^2.
+    pub(crate) variance: Estimate,
+    /// Correlation matrix of (ln fc, ln D, ln tau, ln var) from the record.
+    pub(crate) correlation: [[f64; 4]; 4],
+    /// Drag of the axis, kg/s, and kB T, J.
+    pub(crate) drag_kg_per_s: f64,
+    pub(crate) thermal_energy_j: f64,
+    /// Input covariance of (ln gamma, ln T).
+    pub(crate) input_covariance: [[f64; 2]; 2],
+    /// Metres per signal unit when the record is in a length unit (1e-9 for nm); `None` for
+    /// volts, whose scale is the sensitivity from the spectral fit.
+    pub(crate) metres_per_unit: Option<f64>,
+}
+
+/// The three stiffness estimates (pN/nm) with their covariance, and beta (nm/V) for volts.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(crate) struct Propagated {
+    /// psd, acf, equipartition.
+    pub(crate) stiffness: [Estimate; 3],
+    pub(crate) covariance: [[f64; 3]; 3],
+    pub(crate) sensitivity_nm_per_v: Option<Estimate>,
+}
+
+/// Rows of the linear map: psd, acf, equipartition, ln beta. Columns: ln fc, ln D, ln tau,
+/// ln var, ln gamma, ln T.
+fn log_rows(volts: bool) -> [[f64; 6]; 4] {
+    if volts {
+        [
+            [1.0, 0.0, 0.0, 0.0, 1.0, 0.0],
+            [0.0, 0.0, -1.0, 0.0, 1.0, 0.0],
+            // kappa = kB T / (beta^2 var_V) = gamma D_V / var_V.
+            [0.0, 1.0, 0.0, -1.0, 1.0, 0.0],
+            // beta = sqrt(kB T / (gamma D_V)).
+            [0.0, -0.5, 0.0, 0.0, -0.5, 0.5],
+        ]
+    } else {
+        [
+            [1.0, 0.0, 0.0, 0.0, 1.0, 0.0],
+            [0.0, 0.0, -1.0, 0.0, 1.0, 0.0],
+            [0.0, 0.0, 0.0, -1.0, 0.0, 1.0],
+            [0.0; 6],
+        ]
+    }
+}
+
+/// Covariance of (ln kappa_psd, ln kappa_acf, ln kappa_eq, ln beta).
+fn log_covariance(inp: &PropagationInputs) -> [[f64; 4]; 4] {
+    let rel = [
+        inp.corner_frequency_hz.relative_se(),
+        inp.diffusion.relative_se(),
+        inp.relaxation_time_s.relative_se(),
+        inp.variance.relative_se(),
+    ];
+    let rows = log_rows(inp.metres_per_unit.is_none());
+    let mut full = [[0.0f64; 4]; 4];
+    for a in 0..4 {
+        for b in 0..4 {
+            let mut c = 0.0;
+            for i in 0..4 {
+                for j in 0..4 {
+                    c += rows[a][i] * rows[b][j] * inp.correlation[i][j] * rel[i] * rel[j];
+                }
+            }
+            for i in 0..2 {
+                for j in 0..2 {
+                    c += rows[a][4 + i] * rows[b][4 + j] * inp.input_covariance[i][j];
+                }
+            }
+            full[a][b] = c;
+        }
+    }
+    full
+}
+
+/// The stiffness estimates and beta with their covariance.
+///
+/// kappa_psd = 2 pi gamma fc (Berg-Sorensen & Flyvbjerg, Rev. Sci. Instrum. 75, 594 (2004));
+/// kappa_acf = gamma / tau; equipartition kappa = kB T / var in a length unit, and
+/// kappa = kB T / (beta^2 var_V) with beta = sqrt(kB T / (gamma D_V)) for volts.
+pub(crate) fn propagate(inp: &PropagationInputs) -> Propagated {
+    let full = log_covariance(inp);
+    let gamma = inp.drag_kg_per_s;
+    let kt = inp.thermal_energy_j;
+    let kappa_psd = 2.0 * PI * gamma * inp.corner_frequency_hz.value;
+    let kappa_acf = gamma / inp.relaxation_time_s.value;
+    let (kappa_eq, sensitivity) = match inp.metres_per_unit {
+        Some(scale) => (kt / (inp.variance.value * scale * scale), None),
+        None => {
+            let beta_m_per_v = (kt / gamma / inp.diffusion.value).sqrt();
+            let beta_nm = beta_m_per_v * 1e9;
+            (
+                kt / (beta_m_per_v * beta_m_per_v * inp.variance.value),
+                Some(Estimate::new(beta_nm, beta_nm * full[3][3].sqrt())),
+            )
+        }
+    };
+    let values = [kappa_psd, kappa_acf, kappa_eq].map(|k| k * PN_PER_NM_PER_N_PER_M);
+    let mut covariance = [[0.0; 3]; 3];
+    for i in 0..3 {
+        for j in 0..3 {
+            covariance[i][j] = full[i][j] * values[i] * values[j];
+        }
+    }
+    Propagated {
+        stiffness: std::array::from_fn(|i| Estimate::new(values[i], covariance[i][i].sqrt())),
+        covariance,
+        sensitivity_nm_per_v: sensitivity,
+    }
+}

@@ -1,0 +1,154 @@
+//! Stage two of an axis calibration: the periodogram, its narrow peaks, the spectral model of
+//! this axis and its maximum-likelihood fit; and the removal of the sinusoids behind the peaks,
+//! which the time-domain stage needs.
+
+use super::{AnalysisOptions, CalibrationError, Physics, RunConditions};
+use crate::drag;
+use crate::spectrum::{
+    self, HydroTerms, NarrowPeak, Periodogram, SpectralLine, SpectrumFit, SpectrumFitOptions,
+    SpectrumModel,
+};
+
+/// What the spectral stage found.
+#[derive(Clone, Debug)]
+pub(crate) struct SpectralStage {
+    pub(crate) periodogram: Periodogram,
+    /// Narrow peaks at or above the fit range's lower end.
+    pub(crate) peaks: Vec<NarrowPeak>,
+    /// The one model of this axis's measured spectrum.
+    pub(crate) model: SpectrumModel,
+    pub(crate) fit: SpectrumFit,
+}
+
+/// The model of the measured spectrum these options and conditions describe.
+pub(crate) fn spectrum_model(
+    sample_rate_hz: f64,
+    conditions: &RunConditions,
+    physics: &Physics,
+    options: &AnalysisOptions,
+) -> SpectrumModel {
+    let hydro = options.hydrodynamics.then(|| {
+        let h = drag::hydrodynamic_frequencies(
+            physics.viscosity_pa_s,
+            physics.fluid_density_kg_per_m3,
+            conditions.bead_density_kg_per_m3,
+            conditions.bead_diameter_m / 2.0,
+        );
+        HydroTerms {
+            f_nu_hz: h.f_nu_hz,
+            f_m_hz: h.f_m_hz,
+        }
+    });
+    SpectrumModel {
+        sample_rate_hz,
+        aliasing: true,
+        filter: options.filter,
+        hydro,
+    }
+}
+
+/// Periodogram, peaks and the spectral fit of one axis.
+pub(crate) fn spectral_stage(
+    name: &str,
+    samples: &[f64],
+    model: SpectrumModel,
+    options: &AnalysisOptions,
+) -> Result<SpectralStage, CalibrationError> {
+    let n_windows = options
+        .n_windows
+        .unwrap_or_else(|| super::default_windows(samples.len()));
+    let periodogram = spectrum::periodogram(samples, model.sample_rate_hz, n_windows).ok_or(
+        CalibrationError::TooShort {
+            axis: name.to_string(),
+            n_samples: samples.len(),
+        },
+    )?;
+    let mut fit_options = SpectrumFitOptions::new(model);
+    fit_options.range = options.fit_range;
+    // Peaks below the fit range are drift, which has its own finding.
+    let f_min_hz = fit_options.resolved_range(&periodogram).0;
+    let peaks: Vec<NarrowPeak> = spectrum::find_narrow_peaks(&periodogram, 0.01)
+        .into_iter()
+        .filter(|p| p.frequency_hz >= f_min_hz)
+        .collect();
+    if options.exclude_peaks {
+        fit_options.excluded_bins = excluded_bins(&peaks, periodogram.psd.len());
+    }
+    let fit = spectrum::fit_spectrum(&periodogram, &fit_options, None).map_err(|e| {
+        CalibrationError::Spectrum {
+            axis: name.to_string(),
+            cause: e,
+        }
+    })?;
+    Ok(SpectralStage {
+        periodogram,
+        peaks,
+        model,
+        fit,
+    })
+}
+
+/// Bins of the narrow peaks, widened by one bin on each side, to leave out of the fit.
+fn excluded_bins(peaks: &[NarrowPeak], n_bins: usize) -> Vec<usize> {
+    let mut out = Vec::new();
+    for p in peaks {
+        let lo = p.first_bin.saturating_sub(1);
+        let hi = (p.last_bin + 1).min(n_bins.saturating_sub(1));
+        out.extend(lo..=hi);
+    }
+    out
+}
+
+/// Most lines removed from one axis.
+const MAX_LINES: usize = 10;
+/// Work budget of line removal in sample-evaluations (a line costs about (6 n_windows + 32) N:
+/// the grid scan, a dozen or so evaluations of Brent's method, the final fit and the
+/// subtraction); past it the lines stay in and a finding says so.
+const LINE_BUDGET: f64 = 6e8;
+
+/// The record with the sinusoids behind the narrow peaks fitted and subtracted.
+#[derive(Clone, Debug, Default)]
+pub(crate) struct LineRemoval {
+    /// The cleaned, mean-removed samples, or `None` when nothing was removed.
+    pub(crate) cleaned: Option<Vec<f64>>,
+    pub(crate) removed: Vec<SpectralLine>,
+    /// Peaks left in (over the work budget).
+    pub(crate) kept: usize,
+}
+
+/// Fits and subtracts the sinusoids behind the narrow peaks.
+pub(crate) fn remove_lines(
+    samples: &[f64],
+    sample_rate_hz: f64,
+    peaks: &[NarrowPeak],
+    periodogram: &Periodogram,
+) -> LineRemoval {
+    if peaks.is_empty() {
+        return LineRemoval::default();
+    }
+    let n = samples.len() as f64;
+    let per_line = 6.0f64.mul_add(periodogram.n_windows as f64, 32.0) * n;
+    let affordable = ((LINE_BUDGET / per_line).floor() as usize).min(MAX_LINES);
+    let mut strongest: Vec<&NarrowPeak> = peaks.iter().collect();
+    strongest.sort_by(|a, b| b.excess_power.total_cmp(&a.excess_power));
+    strongest.truncate(affordable);
+    if strongest.is_empty() {
+        return LineRemoval {
+            kept: peaks.len(),
+            ..LineRemoval::default()
+        };
+    }
+    let mean = samples.iter().sum::<f64>() / n;
+    let mut y: Vec<f64> = samples.iter().map(|v| v - mean).collect();
+    let half_width = 0.75 * periodogram.resolution_hz();
+    let removed: Vec<SpectralLine> = strongest
+        .iter()
+        .map(|p| spectrum::fit_line(&y, sample_rate_hz, p.frequency_hz, half_width))
+        .collect();
+    spectrum::subtract_lines(&mut y, sample_rate_hz, &removed);
+    LineRemoval {
+        kept: peaks.len() - removed.len(),
+        cleaned: Some(y),
+        removed,
+    }
+}
