@@ -179,20 +179,32 @@ fn run_setting(setting: &Setting, n_seeds: usize, base_seed: u64) -> Result<serd
             failures += 1;
             continue;
         };
+        // A method that failed on a record counts that record as a failure here.
         let Some(a) = cal.axes.first() else {
             failures += 1;
             continue;
         };
-        band = (a.spectrum.f_min_hz, a.spectrum.f_max_hz);
+        let s = &a.stiffness_pn_per_nm;
+        let (Some(spectrum), Some(fc_e), Some(d_e), Some(psd), Some(acf), Some(eq)) = (
+            a.spectrum.as_ref(),
+            a.corner_frequency_hz,
+            a.diffusion,
+            s.psd,
+            s.acf,
+            s.equipartition,
+        ) else {
+            failures += 1;
+            continue;
+        };
+        band = (spectrum.f_min_hz, spectrum.f_max_hz);
         if !a.peaks.is_empty() {
             with_false_peaks += 1;
         }
-        fc_t.push(a.corner_frequency_hz.value, a.corner_frequency_hz.se, fc);
-        d_t.push(a.diffusion.value, a.diffusion.se, d_true_nm2_s);
-        let s = &a.stiffness_pn_per_nm;
-        k_psd.push(s.psd.value, s.psd.se, kappa_true);
-        k_acf.push(s.acf.value, s.acf.se, kappa_true);
-        k_eq.push(s.equipartition.value, s.equipartition.se, kappa_true);
+        fc_t.push(fc_e.value, fc_e.se, fc);
+        d_t.push(d_e.value, d_e.se, d_true_nm2_s);
+        k_psd.push(psd.value, psd.se, kappa_true);
+        k_acf.push(acf.value, acf.se, kappa_true);
+        k_eq.push(eq.value, eq.se, kappa_true);
         k_cons.push(s.consensus.value, s.consensus.se, kappa_true);
     }
     if fc_t.values.len() < 3 {

@@ -64,7 +64,8 @@ pub struct FindingInputs<'a> {
     pub sample_rate_hz: f64,
     pub unit: PositionUnit,
     pub periodogram: &'a Periodogram,
-    pub spectrum: &'a SpectrumFit,
+    /// The spectral fit, `None` when it failed.
+    pub spectrum: Option<&'a SpectrumFit>,
     pub peaks: &'a [NarrowPeak],
     /// The consensus stiffness, pN/nm.
     pub consensus: Estimate,
@@ -75,26 +76,46 @@ pub struct FindingInputs<'a> {
     pub radius_m: f64,
     pub height_m: Option<f64>,
     pub hydrodynamics: bool,
-    pub relaxation_time_s: f64,
+    /// The autocorrelation method's relaxation time, s, `None` when it failed.
+    pub relaxation_time_s: Option<f64>,
     /// Lines fitted and subtracted from the record, and peaks left in (over the work budget).
     pub lines_removed: usize,
     pub lines_kept: usize,
+    /// Methods that failed on this axis, with the error's message.
+    pub failed_methods: &'a [(&'a str, String)],
 }
 
 /// Runs every check on one axis.
 pub fn assess(inp: &FindingInputs<'_>) -> Vec<Finding> {
     let mut out = Vec::new();
+    failed_methods(inp, &mut out);
     precision(inp, &mut out);
     nyquist(inp, &mut out);
     saturation(inp, &mut out);
     drift(inp, &mut out);
     peaks(inp, &mut out);
     fit_quality(inp, &mut out);
+    identifiability(inp, &mut out);
     consistency(inp, &mut out);
     diffusion(inp, &mut out);
     geometry(inp, &mut out);
     out.sort_by_key(|f| std::cmp::Reverse(f.severity));
     out
+}
+
+/// A method failed while others stood: the calibration completes without it, and this says
+/// which and why.
+fn failed_methods(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
+    for (method, error) in inp.failed_methods {
+        out.push(finding(
+            "method-failed",
+            Severity::Error,
+            format!(
+                "axis {}: the {method} method failed ({error}); the result rests on the other methods",
+                inp.axis
+            ),
+        ));
+    }
 }
 
 /// The consensus stiffness is less precise than asked: the relative error of fc scales as
@@ -121,8 +142,11 @@ fn precision(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
 }
 
 fn nyquist(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
+    let Some(fit) = inp.spectrum else {
+        return;
+    };
     let nyquist = inp.sample_rate_hz / 2.0;
-    let fc = inp.spectrum.corner_frequency_hz;
+    let fc = fit.corner_frequency_hz;
     let ratio = fc / nyquist;
     if ratio > 0.8 {
         out.push(finding(
@@ -143,23 +167,23 @@ fn nyquist(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
             ),
         ));
     }
-    if fc < inp.spectrum.f_min_hz * 1.5 {
+    if fc < fit.f_min_hz * 1.5 {
         out.push(finding(
             "corner-below-fit-range",
             Severity::Warning,
             format!(
                 "axis {}: the corner frequency {:.1} Hz lies near or below the lower fit limit {:.1} Hz; the plateau of the spectrum is not seen: lower the fit limit or record longer",
-                inp.axis, fc, inp.spectrum.f_min_hz
+                inp.axis, fc, fit.f_min_hz
             ),
         ));
     }
-    if fc > inp.spectrum.f_max_hz {
+    if fc > fit.f_max_hz {
         out.push(finding(
             "corner-above-fit-range",
             Severity::Warning,
             format!(
                 "axis {}: the corner frequency {:.0} Hz lies above the upper fit limit {:.0} Hz; raise the limit or model the detector filter",
-                inp.axis, fc, inp.spectrum.f_max_hz
+                inp.axis, fc, fit.f_max_hz
             ),
         ));
     }
@@ -203,16 +227,19 @@ fn saturation(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
 /// Excess power below the fit range: the mean periodogram over those bins relative to the
 /// fitted model, tested against the Gamma distribution of a mean of n exponential ordinates.
 fn drift(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
+    let Some(fit) = inp.spectrum else {
+        return;
+    };
     let pg = inp.periodogram;
     let df = pg.resolution_hz();
-    let k_hi = ((inp.spectrum.f_min_hz / df).floor() as usize).min(pg.psd.len());
+    let k_hi = ((fit.f_min_hz / df).floor() as usize).min(pg.psd.len());
     if k_hi < 2 {
         return;
     }
     let mut ratio_sum = 0.0;
     let mut n = 0usize;
     for (k, p) in pg.psd.iter().enumerate().take(k_hi).skip(1) {
-        let s = inp.spectrum.model_psd_at(k as f64 * df);
+        let s = fit.model_psd_at(k as f64 * df);
         if s > 0.0 {
             ratio_sum += p / s;
             n += 1;
@@ -238,7 +265,7 @@ fn drift(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
             severity,
             format!(
                 "axis {}: below {:.1} Hz the spectrum holds {:.1} times the thermal power; drift or stage motion is present (left out of the spectral fit, but it inflates the variance and the autocorrelation): let the sample settle, or use linear detrending",
-                inp.axis, inp.spectrum.f_min_hz, ratio
+                inp.axis, fit.f_min_hz, ratio
             ),
         ));
     }
@@ -291,7 +318,9 @@ fn peaks(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
 }
 
 fn fit_quality(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
-    let fit = inp.spectrum;
+    let Some(fit) = inp.spectrum else {
+        return;
+    };
     let reduced = fit.chi_square / fit.degrees_of_freedom as f64;
     if fit.p_value < 1e-6 {
         out.push(finding(
@@ -312,6 +341,30 @@ fn fit_quality(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
             ),
         ));
     }
+}
+
+/// The spectral fit sits on a ridge of its likelihood (see `SpectrumFit::unidentified_reason`):
+/// its stiffness is left out of the consensus, and this says how to get a fit that stands.
+fn identifiability(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
+    let Some(fit) = inp.spectrum else {
+        return;
+    };
+    let Some(reason) = fit.unidentified_reason() else {
+        return;
+    };
+    let advice = if fit.fitted_filter.is_some() {
+        "measure the photodiode filter's f3dB and alpha separately and give them as fixed values, or raise the corner frequency (a stiffer trap) or the sample rate so the corner and the filter separate"
+    } else {
+        "record longer, widen the fit range or raise the sample rate"
+    };
+    out.push(finding(
+        "spectrum-unidentified",
+        Severity::Error,
+        format!(
+            "axis {}: {reason}; the power-spectrum stiffness is left out of the consensus: {advice}",
+            inp.axis
+        ),
+    ));
 }
 
 fn consistency(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
@@ -343,12 +396,15 @@ fn consistency(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
 /// For nanometre data the fitted D can be compared with Einstein's kB T / gamma: a mismatch
 /// points at the length scale of the camera, the bead size, the viscosity or the height.
 fn diffusion(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
+    let Some(fit) = inp.spectrum else {
+        return;
+    };
     if inp.unit != PositionUnit::Nanometre {
         return;
     }
-    let d_measured_m2 = inp.spectrum.diffusion * 1e-18;
+    let d_measured_m2 = fit.diffusion * 1e-18;
     let ratio = d_measured_m2 / inp.diffusion_theory_m2_per_s;
-    let rel_se = inp.spectrum.diffusion_se / inp.spectrum.diffusion;
+    let rel_se = fit.diffusion_se / fit.diffusion;
     if ((ratio - 1.0) / rel_se).abs() > 3.0 && (ratio - 1.0).abs() > 0.05 {
         out.push(finding(
             "diffusion-mismatch",
@@ -386,13 +442,13 @@ fn geometry(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
         }
     }
     let dt = 1.0 / inp.sample_rate_hz;
-    if inp.relaxation_time_s < 2.0 * dt {
+    if let Some(tau) = inp.relaxation_time_s.filter(|tau| *tau < 2.0 * dt) {
         out.push(finding(
             "few-samples-per-relaxation",
             Severity::Warning,
             format!(
                 "axis {}: the relaxation time {:.2e} s spans fewer than two samples; the autocorrelation estimate rests on very few lags",
-                inp.axis, inp.relaxation_time_s
+                inp.axis, tau
             ),
         ));
     }
@@ -413,8 +469,8 @@ impl FindingInputs<'_> {
 
     /// The variance implied by the spectral fit, D / (2 pi fc), in signal units^2.
     fn stiffness_variance_hint(&self) -> Option<f64> {
-        let v = self.spectrum.diffusion
-            / (2.0 * std::f64::consts::PI * self.spectrum.corner_frequency_hz);
+        let fit = self.spectrum?;
+        let v = fit.diffusion / (2.0 * std::f64::consts::PI * fit.corner_frequency_hz);
         v.is_finite().then_some(v)
     }
 }

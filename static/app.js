@@ -697,13 +697,14 @@ function histogramFigure(axis, hist, unit) {
 
 /** The three stiffness estimates with ±1 standard-error bars beside the consensus and its band. */
 function stiffnessFigure(axis, stiffness) {
+  const excluded = stiffness.excluded || {};
   const methods = [
     ["psd", "Power spectrum"],
     ["acf", "Autocorrelation"],
     ["equipartition", stiffness.equipartition_independent ? "Equipartition" : "Equipartition (uses β)"],
   ];
   const cons = stiffness.consensus;
-  const values = methods.flatMap(([k]) => [stiffness[k].value - stiffness[k].se, stiffness[k].value + stiffness[k].se]);
+  const values = methods.filter(([k]) => stiffness[k]).flatMap(([k]) => [stiffness[k].value - stiffness[k].se, stiffness[k].value + stiffness[k].se]);
   values.push(cons.value - cons.se, cons.value + cons.se);
   const names = methods.map(([, name]) => name);
   const c = chart({
@@ -719,17 +720,18 @@ function stiffnessFigure(axis, stiffness) {
   const g = svg("g", { "data-series": "estimates" });
   methods.forEach(([key], i) => {
     const e = stiffness[key];
+    if (!e) return;
     const px = c.sx(i + 0.5);
     g.append(svg("line", { class: "error-bar", "data-series": "error-bar", "data-method": key, x1: px, x2: px, y1: c.sy(e.value - e.se), y2: c.sy(e.value + e.se) }));
     for (const v of [e.value - e.se, e.value + e.se]) g.append(svg("line", { class: "error-bar", x1: px - 7, x2: px + 7, y1: c.sy(v), y2: c.sy(v) }));
     g.append(svg("circle", {
-      class: stiffness.equipartition_independent || key !== "equipartition" ? "series-data" : "series-hollow",
+      class: !excluded[key] && (stiffness.equipartition_independent || key !== "equipartition") ? "series-data" : "series-hollow",
       "data-series": "estimate", "data-method": key, "data-value": e.value, cx: px, cy: c.sy(e.value), r: 5,
     }));
   });
   c.plot.append(g);
   const items = [["bars", "estimate ± 1 SE"], ["dashed", "consensus"], ["band", "consensus ± 1 SE"]];
-  if (!stiffness.equipartition_independent) items.push(["hollow", "not in the consensus (β from the spectrum)"]);
+  if (!stiffness.equipartition_independent || Object.keys(excluded).length) items.push(["hollow", "not in the consensus (see the reasons above)"]);
   return figure("stiffness", axis, `Stiffness estimates, axis ${axis}`, c.node, legend(items));
 }
 
@@ -741,12 +743,23 @@ function verdictBadge(verdict) {
   const icon = ok
     ? svg("svg", { viewBox: "0 0 16 16", "aria-hidden": "true" }, svg("circle", { cx: 8, cy: 8, r: 7, fill: "none", stroke: "currentColor", "stroke-width": 2 }), svg("path", { d: "M4.5 8.3 L7 10.8 L11.6 5.6", fill: "none", stroke: "currentColor", "stroke-width": 2 }))
     : svg("svg", { viewBox: "0 0 16 16", "aria-hidden": "true" }, svg("path", { d: "M8 1 L15 14.5 H1 Z", fill: "none", stroke: "currentColor", "stroke-width": 1.8, "stroke-linejoin": "round" }), svg("path", { d: "M8 6 V10", stroke: "currentColor", "stroke-width": 2 }), svg("circle", { cx: 8, cy: 12.3, r: 1.1, fill: "currentColor" }));
-  const words = ok ? "Consistent: the estimates agree" : "Inconsistent: check before use";
+  const words = {
+    consistent: "Consistent: the estimates agree",
+    inconsistent: "Inconsistent: check before use",
+    unchecked: "Unchecked: one method left, nothing to cross-check it",
+    unreliable: "Unreliable: every method was left out, do not use",
+  }[verdict] || verdict;
   return el("span", { class: `verdict verdict-${ok ? "consistent" : "inconsistent"}`, "data-verdict": verdict }, icon, words);
 }
 
 /** One labelled number: value ± standard error in `unit`, shown scaled by `scale`. */
 function numberItem(quantity, label, ve, unit, scale = 1) {
+  if (!ve) {
+    // The method behind this number failed on the record; a finding says why.
+    return el("div", { class: "number" },
+      el("dt", { text: label }),
+      el("dd", { "data-quantity": quantity, "data-missing": "true" }, el("span", { class: "value", text: "failed (see the findings)" })));
+  }
   return el("div", { class: "number" },
     el("dt", { text: label }),
     el("dd", { "data-quantity": quantity, "data-value": ve.value, "data-se": ve.se },
@@ -784,9 +797,9 @@ function axisCard(axis, report, plotsOfAxis) {
     : null;
   const plots = plotsOfAxis
     ? el("div", { class: "plots" },
-      spectrumFigure(axis.axis, plotsOfAxis.spectrum, axis.spectrum_fit, unit),
-      acfFigure(axis.axis, plotsOfAxis.autocorrelation, unit),
-      histogramFigure(axis.axis, plotsOfAxis.histogram, unit),
+      plotsOfAxis.spectrum ? spectrumFigure(axis.axis, plotsOfAxis.spectrum, axis.spectrum_fit, unit) : null,
+      plotsOfAxis.autocorrelation ? acfFigure(axis.axis, plotsOfAxis.autocorrelation, unit) : null,
+      plotsOfAxis.histogram ? histogramFigure(axis.axis, plotsOfAxis.histogram, unit) : null,
       stiffnessFigure(axis.axis, s))
     : el("p", { class: "empty", text: "No plot data stored for this axis." });
   return el("section", { class: "axis-card", "data-axis": axis.axis, "aria-labelledby": `axis-${axis.axis}` },

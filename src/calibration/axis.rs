@@ -11,7 +11,8 @@ use super::propagation::{self, Propagated, PropagationInputs};
 use super::spectral::{self, LineRemoval, SpectralStage};
 use super::time_domain::{self, TimeDomainStage};
 use super::{
-    AnalysisOptions, AxisCalibration, CalibrationError, Physics, RunConditions, Stiffness,
+    AnalysisOptions, AxisCalibration, CalibrationError, MethodFailure, Physics, RunConditions,
+    Stiffness,
 };
 use crate::equipartition::{self, Detrend};
 use crate::estimate::Estimate;
@@ -30,7 +31,9 @@ pub(crate) struct AxisInput<'a> {
     pub(crate) options: &'a AnalysisOptions,
 }
 
-/// Calibrates one axis by chaining the stages.
+/// Calibrates one axis by chaining the stages. A method that fails leaves the others standing
+/// (its failure is a finding); only when no stiffness can be computed at all is the first
+/// failure the error.
 pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, CalibrationError> {
     let AxisInput {
         name,
@@ -66,9 +69,9 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         name,
         time_samples,
         sample_rate_hz,
-        spectral.fit.corner_frequency_hz,
+        spectral.fit.as_ref().ok().map(|f| f.corner_frequency_hz),
         options,
-    )?;
+    );
 
     let propagated = propagation::propagate(&propagation_inputs(
         &spectral,
@@ -78,15 +81,29 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         unit,
         sample_rate_hz,
     ));
-    let stiffness = consensus_stage(&propagated, unit);
+    let failures = failures(&spectral, &time);
+    if propagated.stiffness.iter().all(Option::is_none) {
+        // Nothing stands: the first failure, in the order the methods ran, is the error.
+        return Err(failures
+            .into_iter()
+            .next()
+            .map(|f| f.error)
+            .unwrap_or(CalibrationError::NoAxes));
+    }
+    let excluded = exclusions(&spectral, &time, &failures, unit);
+    let stiffness = consensus_stage(&propagated, unit, excluded);
     let d_theory = physics.thermal_energy_j / drag.drag_kg_per_s.value;
+    let failure_texts: Vec<(&str, String)> = failures
+        .iter()
+        .map(|f| (f.method, f.error.to_string()))
+        .collect();
     let findings = findings::assess(&FindingInputs {
         axis: name,
         samples: raw_samples,
         sample_rate_hz,
         unit,
         periodogram: &spectral.periodogram,
-        spectrum: &spectral.fit,
+        spectrum: spectral.fit.as_ref().ok(),
         peaks: &spectral.peaks,
         consensus: stiffness.stiffness.consensus,
         disagreements: &disagreements(&stiffness.discrepancies),
@@ -95,9 +112,10 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         radius_m: conditions.bead_diameter_m / 2.0,
         height_m: conditions.height_m,
         hydrodynamics: options.hydrodynamics,
-        relaxation_time_s: time.acf.relaxation_time_s,
+        relaxation_time_s: time.acf.as_ref().ok().map(|a| a.relaxation_time_s),
         lines_removed: lines.removed.len(),
         lines_kept: lines.kept,
+        failed_methods: &failure_texts,
     });
     Ok(assemble(
         name,
@@ -108,9 +126,34 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         propagated,
         stiffness,
         findings,
+        failures,
         lines,
         sample_rate_hz,
     ))
+}
+
+/// The methods that failed, in the order they ran.
+fn failures(spectral: &SpectralStage, time: &TimeDomainStage) -> Vec<MethodFailure> {
+    let mut out = Vec::new();
+    if let Err(e) = &spectral.fit {
+        out.push(MethodFailure {
+            method: "psd",
+            error: e.clone(),
+        });
+    }
+    if let Err(e) = &time.acf {
+        out.push(MethodFailure {
+            method: "acf",
+            error: e.clone(),
+        });
+    }
+    if let Err(e) = &time.variance {
+        out.push(MethodFailure {
+            method: "equipartition",
+            error: e.clone(),
+        });
+    }
+    out
 }
 
 /// The samples the methods see: with linear detrending all three work on the residuals of the
@@ -143,28 +186,26 @@ fn propagation_inputs(
     unit: PositionUnit,
     sample_rate_hz: f64,
 ) -> PropagationInputs {
-    let fit = &spectral.fit;
+    let fit = spectral.fit.as_ref().ok();
+    let acf = time.acf.as_ref().ok();
+    let variance = time.variance.as_ref().ok();
     let periodogram = &spectral.periodogram;
     let record_length_s =
         periodogram.segment_len as f64 * periodogram.n_windows as f64 / sample_rate_hz;
-    let log_cov = covariance::log_covariance(&covariance::InfluenceInputs {
-        model: &spectral.model,
-        theta: &fit.theta,
-        theta_covariance: &fit.covariance,
-        fit_min_hz: fit.f_min_hz,
-        fit_max_hz: fit.f_max_hz,
-        record_length_s,
-        sample_rate_hz,
-        tau_influence: &time.acf.tau_influence,
-        relaxation_time_s: time.acf.relaxation_time_s,
-        variance: time.variance.variance,
-    });
     PropagationInputs {
-        corner_frequency_hz: Estimate::new(fit.corner_frequency_hz, fit.corner_frequency_se_hz),
-        diffusion: Estimate::new(fit.diffusion, fit.diffusion_se),
-        relaxation_time_s: Estimate::new(time.acf.relaxation_time_s, time.acf.relaxation_time_se_s),
-        variance: Estimate::new(time.variance.variance, time.variance.variance_se),
-        correlation: covariance::correlation(&log_cov),
+        corner_frequency_hz: fit
+            .map(|f| Estimate::new(f.corner_frequency_hz, f.corner_frequency_se_hz)),
+        diffusion: fit.map(|f| Estimate::new(f.diffusion, f.diffusion_se)),
+        relaxation_time_s: acf.map(|a| Estimate::new(a.relaxation_time_s, a.relaxation_time_se_s)),
+        variance: variance.map(|v| Estimate::new(v.variance, v.variance_se)),
+        correlation: covariance::method_correlation(
+            &spectral.model,
+            fit,
+            acf,
+            variance.map(|v| v.variance),
+            record_length_s,
+            sample_rate_hz,
+        ),
         drag_kg_per_s: drag.drag_kg_per_s.value,
         thermal_energy_j: physics.thermal_energy_j,
         input_covariance: [
@@ -186,15 +227,136 @@ pub(crate) struct ConsensusStage {
     pub(crate) verdict_reasons: Vec<String>,
 }
 
-/// Combines the estimates. For volt data equipartition uses the sensitivity from the spectral
-/// fit, so it is not independent of the spectrum and stays out of the consensus.
-pub(crate) fn consensus_stage(propagated: &Propagated, unit: PositionUnit) -> ConsensusStage {
+/// Upper-tail p-value of a method's own goodness of fit below which the fit is rejected and the
+/// method leaves the consensus. On data its model describes, the p-value is uniform, so this
+/// excludes a sound method in 0.1 % of records per method (the tests measure the rate on exact
+/// simulations: at most 1 % for the two fits together).
+pub(crate) const FIT_REJECTION_P: f64 = 1e-3;
+
+/// Why each method (psd, acf, equipartition) cannot stand in the consensus, if it cannot: its
+/// own fit is rejected, or its model cannot describe what the spectral model contains.
+pub(crate) fn exclusions(
+    spectral: &SpectralStage,
+    time: &TimeDomainStage,
+    failures: &[MethodFailure],
+    unit: PositionUnit,
+) -> [Option<String>; 3] {
+    let failed = |method: &str| {
+        failures
+            .iter()
+            .find(|f| f.method == method)
+            .map(|f| format!("it failed: {}", f.error))
+    };
+    let psd = if let Some(reason) = failed("psd") {
+        Some(reason)
+    } else if let Some(reason) = spectral
+        .fit
+        .as_ref()
+        .ok()
+        .and_then(|f| f.unidentified_reason())
+    {
+        Some(reason)
+    } else if let Some(fit) = spectral
+        .fit
+        .as_ref()
+        .ok()
+        .filter(|f| f.p_value < FIT_REJECTION_P)
+    {
+        Some(format!(
+            "its model does not fit the spectrum (chi-square {:.1} on {} degrees of freedom, p = {:.1e} < {FIT_REJECTION_P})",
+            fit.chi_square, fit.degrees_of_freedom, fit.p_value
+        ))
+    } else {
+        None
+    };
+    let mut unmodelled = Vec::new();
+    if !matches!(spectral.model.filter, crate::spectrum::FilterSetting::None) {
+        unmodelled.push("the photodiode filter");
+    }
+    if spectral.model.hydro.is_some() {
+        unmodelled.push("frequency-dependent drag");
+    }
+    let acf_p = time.acf.as_ref().map_or(1.0, |a| {
+        chi_square_p_value(a.chi_square, a.degrees_of_freedom)
+    });
+    let acf = if let Some(reason) = failed("acf") {
+        Some(reason)
+    } else if !unmodelled.is_empty() {
+        Some(format!(
+            "not applicable: its fit assumes a plain exponential decay, but the spectral model holds {}, which changes the autocovariance",
+            unmodelled.join(" and ")
+        ))
+    } else if acf_p < FIT_REJECTION_P {
+        Some(format!(
+            "its model does not fit the autocovariance (p = {acf_p:.1e} < {FIT_REJECTION_P})"
+        ))
+    } else {
+        None
+    };
+    // In volts, equipartition's length scale is beta from the spectral fit.
+    let equipartition = if let Some(reason) = failed("equipartition") {
+        Some(reason)
+    } else if unit == PositionUnit::Volt && psd.is_some() {
+        Some(
+            "it converts volts to nanometres with beta from the spectral fit, which was left out"
+                .to_string(),
+        )
+    } else if !matches!(spectral.model.filter, crate::spectrum::FilterSetting::None) {
+        Some(
+            "not applicable: the photodiode filter removes part of the variance the detector reports, and the variance is not corrected for it"
+                .to_string(),
+        )
+    } else {
+        None
+    };
+    [psd, acf, equipartition]
+}
+
+/// Upper-tail probability of a chi-square statistic (1 for no degrees of freedom).
+fn chi_square_p_value(chi_square: f64, degrees_of_freedom: usize) -> f64 {
+    use statrs::distribution::{ChiSquared, ContinuousCDF};
+    if degrees_of_freedom == 0 {
+        return 1.0;
+    }
+    ChiSquared::new(degrees_of_freedom as f64)
+        .map(|d| d.sf(chi_square))
+        .unwrap_or(f64::NAN)
+}
+
+/// Combines the estimates not excluded. For volt data equipartition uses the sensitivity from
+/// the spectral fit, so it is not independent of the spectrum and stays out of the consensus
+/// (without being excluded: it still counts in the verdict, its covariance with psd known).
+/// When every method is excluded, the consensus is computed over all of them for reference and
+/// the verdict says it should not be used.
+pub(crate) fn consensus_stage(
+    propagated: &Propagated,
+    unit: PositionUnit,
+    excluded: [Option<String>; 3],
+) -> ConsensusStage {
     let volts = unit == PositionUnit::Volt;
-    let values = propagated.stiffness.map(|e| e.value);
-    let include = [true, true, !volts];
+    let present = propagated.stiffness.map(|e| e.is_some());
+    let values = propagated.stiffness.map(|e| e.map_or(0.0, |e| e.value));
+    let mut include: [bool; 3] = std::array::from_fn(|i| excluded[i].is_none() && present[i]);
+    if volts {
+        include[2] = false;
+    }
+    if !include.contains(&true) {
+        // Every method is out: the consensus over those that exist, for reference only (the
+        // verdict says `unreliable`).
+        include = present;
+    }
     let combined = consensus::combine(&values, &propagated.covariance, &include);
-    let discrepancies = consensus::discrepancies(&values, &propagated.covariance);
-    let (verdict, verdict_reasons) = consensus::verdict(&discrepancies, &combined);
+    let discrepancies: Vec<consensus::Discrepancy> =
+        consensus::discrepancies(&values, &propagated.covariance)
+            .into_iter()
+            .filter(|d| {
+                let index = |m: &str| consensus::METHODS.iter().position(|n| *n == m);
+                [index(d.first), index(d.second)]
+                    .iter()
+                    .all(|i| i.is_some_and(|i| present[i]))
+            })
+            .collect();
+    let (verdict, verdict_reasons) = consensus::verdict(&discrepancies, &combined, &excluded);
     let [psd, acf, equipartition] = propagated.stiffness;
     ConsensusStage {
         stiffness: Stiffness {
@@ -205,6 +367,7 @@ pub(crate) fn consensus_stage(propagated: &Propagated, unit: PositionUnit) -> Co
             consensus: combined.estimate,
             consensus_weights: combined.weights,
             correlation: covariance::correlation(&propagated.covariance),
+            excluded,
         },
         discrepancies,
         verdict,
@@ -237,19 +400,26 @@ fn assemble(
     propagated: Propagated,
     stiffness: ConsensusStage,
     findings: Vec<findings::Finding>,
+    failures: Vec<MethodFailure>,
     lines: LineRemoval,
     sample_rate_hz: f64,
 ) -> AxisCalibration {
-    let fit = spectral.fit;
-    let tau = time.acf.relaxation_time_s;
+    let fit = spectral.fit.ok();
+    let acf = time.acf.ok();
     AxisCalibration {
         axis: name.to_string(),
         orientation: drag.orientation,
         wall_factor: drag.wall_factor,
         drag_kg_per_s: drag.drag_kg_per_s,
-        corner_frequency_hz: Estimate::new(fit.corner_frequency_hz, fit.corner_frequency_se_hz),
-        relaxation_time_s: Estimate::new(tau, time.acf.relaxation_time_se_s),
-        diffusion: Estimate::new(fit.diffusion, fit.diffusion_se),
+        corner_frequency_hz: fit
+            .as_ref()
+            .map(|f| Estimate::new(f.corner_frequency_hz, f.corner_frequency_se_hz)),
+        relaxation_time_s: acf
+            .as_ref()
+            .map(|a| Estimate::new(a.relaxation_time_s, a.relaxation_time_se_s)),
+        diffusion: fit
+            .as_ref()
+            .map(|f| Estimate::new(f.diffusion, f.diffusion_se)),
         diffusion_theory_m2_per_s,
         stiffness_pn_per_nm: stiffness.stiffness,
         sensitivity_nm_per_v: propagated.sensitivity_nm_per_v,
@@ -260,10 +430,11 @@ fn assemble(
         resolution_hz: spectral.periodogram.resolution_hz(),
         n_windows: spectral.periodogram.n_windows,
         spectrum: fit,
-        acf: time.acf,
-        variance: time.variance,
+        acf,
+        variance: time.variance.ok(),
         peaks: spectral.peaks,
         histogram: time.histogram,
+        failures,
         includes_input_errors: drag.includes_input_errors,
         sample_rate_hz,
         lines_removed: lines.removed,

@@ -20,13 +20,17 @@ pub struct Discrepancy {
     pub z: f64,
 }
 
-/// Whether the methods agree within their errors.
+/// Whether the methods that stand agree within their errors.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Verdict {
-    /// Every pair of methods agrees within 3 combined standard errors.
+    /// Every pair of the methods left in agrees within 3 combined standard errors.
     Consistent,
-    /// At least one pair differs by more.
+    /// At least one pair of the methods left in differs by more.
     Inconsistent,
+    /// Only one method is left in: there is nothing to cross-check it against.
+    Unchecked,
+    /// Every method was left out: the consensus is shown for reference only.
+    Unreliable,
 }
 
 impl Verdict {
@@ -35,6 +39,19 @@ impl Verdict {
         match self {
             Verdict::Consistent => "consistent",
             Verdict::Inconsistent => "inconsistent",
+            Verdict::Unchecked => "unchecked",
+            Verdict::Unreliable => "unreliable",
+        }
+    }
+}
+
+/// What each method's estimate rests on, for verdicts that must say why two disagree.
+pub fn depends_on(method: &str) -> &'static str {
+    match method {
+        "psd" => "the spectral model (detector filter, drag model, fit range) and the drag",
+        "acf" => "the autocovariance model and the drag",
+        _ => {
+            "the variance of the record (drift, detector noise, the unit's scale) and the temperature"
         }
     }
 }
@@ -182,32 +199,83 @@ pub fn discrepancies(values: &[f64; 3], cov: &[[f64; 3]; 3]) -> Vec<Discrepancy>
     out
 }
 
-/// The verdict and its reasons in plain words.
-pub fn verdict(discrepancies: &[Discrepancy], combined: &Combined) -> (Verdict, Vec<String>) {
+/// The verdict and its reasons in plain words, over the methods not excluded.
+///
+/// `excluded[i]` holds the reason method i was left out of the consensus. Pairs with an
+/// excluded method do not count. With three methods left and one of them in every
+/// disagreeing pair while the other two agree, the verdict names it; with two left that
+/// disagree, it says what each depends on.
+pub fn verdict(
+    discrepancies: &[Discrepancy],
+    combined: &Combined,
+    excluded: &[Option<String>; 3],
+) -> (Verdict, Vec<String>) {
+    let standing: Vec<&str> = (0..3)
+        .filter(|&i| excluded[i].is_none())
+        .map(|i| METHODS[i])
+        .collect();
     let mut reasons = Vec::new();
-    for d in discrepancies {
-        if d.z.abs() > Z_LIMIT {
-            reasons.push(format!(
-                "{} and {} differ by {:.2} standard errors of their difference ({:+.4} +- {:.4} pN/nm)",
-                d.first,
-                d.second,
-                d.z.abs(),
-                d.difference,
-                d.difference_se
-            ));
+    for (i, reason) in excluded.iter().enumerate() {
+        if let Some(r) = reason {
+            reasons.push(format!("{} left out of the consensus: {r}", METHODS[i]));
         }
     }
-    if reasons.is_empty() {
-        let worst = discrepancies
-            .iter()
-            .map(|d| d.z.abs())
-            .fold(0.0f64, f64::max);
-        reasons.push(format!(
-            "all pairs agree within {Z_LIMIT} standard errors (largest {worst:.2}); consensus chi-square {:.2} on {} degrees of freedom",
-            combined.chi_square, combined.degrees_of_freedom
-        ));
-        (Verdict::Consistent, reasons)
-    } else {
-        (Verdict::Inconsistent, reasons)
+    if standing.is_empty() {
+        reasons.push(
+            "every method was left out; the consensus is shown for reference only and should not be used".to_string(),
+        );
+        return (Verdict::Unreliable, reasons);
     }
+    if standing.len() == 1 {
+        reasons.push(format!(
+            "only {} is left, so nothing cross-checks it",
+            standing[0]
+        ));
+        return (Verdict::Unchecked, reasons);
+    }
+    let counted: Vec<&Discrepancy> = discrepancies
+        .iter()
+        .filter(|d| standing.contains(&d.first) && standing.contains(&d.second))
+        .collect();
+    let bad: Vec<&&Discrepancy> = counted.iter().filter(|d| d.z.abs() > Z_LIMIT).collect();
+    if bad.is_empty() {
+        let worst = counted.iter().map(|d| d.z.abs()).fold(0.0f64, f64::max);
+        reasons.push(format!(
+            "{} agree within {Z_LIMIT} standard errors (largest {worst:.2}); consensus chi-square {:.2} on {} degrees of freedom",
+            if standing.len() == 3 { "all three methods".to_string() } else { standing.join(" and ") },
+            combined.chi_square,
+            combined.degrees_of_freedom
+        ));
+        return (Verdict::Consistent, reasons);
+    }
+    for d in &bad {
+        reasons.push(format!(
+            "{} and {} differ by {:.2} standard errors of their difference ({:+.4} +- {:.4} pN/nm)",
+            d.first,
+            d.second,
+            d.z.abs(),
+            d.difference,
+            d.difference_se
+        ));
+    }
+    if standing.len() == 3 {
+        if let Some(odd) = standing
+            .iter()
+            .find(|m| bad.iter().all(|d| d.first == **m || d.second == **m) && bad.len() == 2)
+        {
+            reasons.push(format!(
+                "{odd} disagrees with the other two, which agree with each other; it rests on {}",
+                depends_on(odd)
+            ));
+        }
+    } else {
+        reasons.push(format!(
+            "with two methods left there is no third to tell which is off: {} rests on {}; {} rests on {}",
+            standing[0],
+            depends_on(standing[0]),
+            standing[1],
+            depends_on(standing[1])
+        ));
+    }
+    (Verdict::Inconsistent, reasons)
 }

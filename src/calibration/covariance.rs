@@ -102,6 +102,84 @@ pub(crate) fn log_covariance(inp: &InfluenceInputs<'_>) -> [[f64; 4]; 4] {
     acc
 }
 
+/// Correlation matrix of (ln fc, ln D, ln tau, ln variance) for the methods that exist on this
+/// record (a failed method is `None`; its row and column are zero off the diagonal).
+///
+/// Without a spectral fit the spectrum S(f) that sets the periodogram's scatter is the plain
+/// aliased Lorentzian at the autocorrelation fit's estimate, which is what that fit assumes.
+pub(crate) fn method_correlation(
+    model: &SpectrumModel,
+    fit: Option<&crate::spectrum::SpectrumFit>,
+    acf: Option<&crate::autocorrelation::ExponentialFit>,
+    variance: Option<f64>,
+    record_length_s: f64,
+    sample_rate_hz: f64,
+) -> [[f64; 4]; 4] {
+    let mut identity = [[0.0; 4]; 4];
+    for (i, row) in identity.iter_mut().enumerate() {
+        row[i] = 1.0;
+    }
+    let (model, theta, theta_covariance, fit_min_hz, fit_max_hz) = match (fit, acf) {
+        (Some(f), _) => (
+            *model,
+            f.theta.clone(),
+            f.covariance.clone(),
+            f.f_min_hz,
+            f.f_max_hz,
+        ),
+        (None, Some(a)) => {
+            let fc = 1.0 / (2.0 * PI * a.relaxation_time_s);
+            let d = a.amplitude * 2.0 * PI * fc;
+            let plain = SpectrumModel {
+                sample_rate_hz,
+                aliasing: true,
+                filter: FilterSetting::None,
+                hydro: None,
+            };
+            // An empty fit band: no spectral weights.
+            (
+                plain,
+                vec![fc.ln(), d.ln()],
+                vec![vec![0.0; 2]; 2],
+                1.0,
+                0.0,
+            )
+        }
+        (None, None) => return identity,
+    };
+    let (tau_influence, relaxation_time_s): (&[(usize, f64)], f64) = match acf {
+        Some(a) => (&a.tau_influence, a.relaxation_time_s),
+        None => (&[], 1.0),
+    };
+    let cov = log_covariance(&InfluenceInputs {
+        model: &model,
+        theta: &theta,
+        theta_covariance: &theta_covariance,
+        fit_min_hz,
+        fit_max_hz,
+        record_length_s,
+        sample_rate_hz,
+        tau_influence,
+        relaxation_time_s,
+        variance: variance.unwrap_or(1.0),
+    });
+    let mut r = correlation(&cov);
+    let present = [
+        fit.is_some(),
+        fit.is_some(),
+        acf.is_some(),
+        variance.is_some(),
+    ];
+    for i in 0..4 {
+        for j in 0..4 {
+            if !(present[i] && present[j]) {
+                r[i][j] = identity[i][j];
+            }
+        }
+    }
+    r
+}
+
 /// Step of the central differences of ln S in theta (log-space parameters), used when the model
 /// has no closed form.
 const DERIVATIVE_STEP: f64 = 1e-5;

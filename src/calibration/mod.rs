@@ -104,7 +104,7 @@ impl Default for AnalysisOptions {
 }
 
 /// Why a recording could not be calibrated.
-#[derive(Debug, thiserror::Error)]
+#[derive(Clone, Debug, thiserror::Error)]
 pub enum CalibrationError {
     /// A run condition is out of its physical range.
     #[error("run condition `{field}` = {value} is invalid: {reason}")]
@@ -164,9 +164,11 @@ pub struct Physics {
 /// The three stiffness estimates of one axis and their combination, pN/nm.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Stiffness {
-    pub psd: Estimate,
-    pub acf: Estimate,
-    pub equipartition: Estimate,
+    /// Each method's estimate, `None` when the method failed on this record (a finding says
+    /// why).
+    pub psd: Option<Estimate>,
+    pub acf: Option<Estimate>,
+    pub equipartition: Option<Estimate>,
     /// Whether equipartition is independent of the spectrum (false for volt data, where it uses
     /// the sensitivity from the spectral fit) and so enters the consensus.
     pub equipartition_independent: bool,
@@ -175,6 +177,9 @@ pub struct Stiffness {
     pub consensus_weights: [f64; 3],
     /// Correlation matrix of the three estimates, statistical and input errors together.
     pub correlation: [[f64; 3]; 3],
+    /// Why each method (psd, acf, equipartition) was left out of the consensus, if it was: its
+    /// value stands, its weight is zero.
+    pub excluded: [Option<String>; 3],
 }
 
 /// A histogram of positions with the Gaussian expected from equipartition.
@@ -188,6 +193,14 @@ pub struct Histogram {
     pub expected: Vec<f64>,
 }
 
+/// A method that failed on one axis while others stood.
+#[derive(Clone, Debug)]
+pub struct MethodFailure {
+    /// `psd`, `acf` or `equipartition`.
+    pub method: &'static str,
+    pub error: CalibrationError,
+}
+
 /// The calibration of one axis.
 #[derive(Clone, Debug)]
 pub struct AxisCalibration {
@@ -197,10 +210,13 @@ pub struct AxisCalibration {
     pub wall_factor: f64,
     /// Drag of this axis, kg/s.
     pub drag_kg_per_s: Estimate,
-    pub corner_frequency_hz: Estimate,
-    pub relaxation_time_s: Estimate,
-    /// Measured diffusion coefficient, signal-units^2/s (one-sided convention).
-    pub diffusion: Estimate,
+    /// From the spectral fit; `None` when it failed.
+    pub corner_frequency_hz: Option<Estimate>,
+    /// From the autocorrelation fit; `None` when it failed.
+    pub relaxation_time_s: Option<Estimate>,
+    /// Measured diffusion coefficient, signal-units^2/s (one-sided convention), from the
+    /// spectral fit.
+    pub diffusion: Option<Estimate>,
     /// Einstein's D = kB T / gamma, m^2/s, for the same axis.
     pub diffusion_theory_m2_per_s: f64,
     pub stiffness_pn_per_nm: Stiffness,
@@ -210,11 +226,14 @@ pub struct AxisCalibration {
     pub verdict: Verdict,
     pub verdict_reasons: Vec<String>,
     pub findings: Vec<Finding>,
-    pub spectrum: SpectrumFit,
-    pub acf: ExponentialFit,
-    pub variance: VarianceEstimate,
+    /// The methods' own results; `None` for a method that failed (see `failures`).
+    pub spectrum: Option<SpectrumFit>,
+    pub acf: Option<ExponentialFit>,
+    pub variance: Option<VarianceEstimate>,
     pub peaks: Vec<NarrowPeak>,
-    pub histogram: Histogram,
+    pub histogram: Option<Histogram>,
+    /// Methods that failed on this axis, with the error; the others stand without them.
+    pub failures: Vec<MethodFailure>,
     /// Whether the errors include the run conditions' uncertainties.
     pub includes_input_errors: bool,
     /// Sampling rate, Hz, and the periodogram's frequency resolution, Hz.

@@ -13,16 +13,17 @@ use std::f64::consts::PI;
 /// 1 N/m expressed in pN/nm.
 pub(crate) const PN_PER_NM_PER_N_PER_M: f64 = 1e3;
 
-/// The plain numbers propagation needs, SI with the signal unit of the record.
+/// The plain numbers propagation needs, SI with the signal unit of the record. A method that
+/// failed is `None`; the others are propagated without it.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub(crate) struct PropagationInputs {
     /// Spectral corner frequency (Hz) and diffusion coefficient (signal-unit^2/s).
-    pub(crate) corner_frequency_hz: Estimate,
-    pub(crate) diffusion: Estimate,
+    pub(crate) corner_frequency_hz: Option<Estimate>,
+    pub(crate) diffusion: Option<Estimate>,
     /// Relaxation time of the autocorrelation method, s.
-    pub(crate) relaxation_time_s: Estimate,
+    pub(crate) relaxation_time_s: Option<Estimate>,
     /// Variance of the record, signal-unit^2.
-    pub(crate) variance: Estimate,
+    pub(crate) variance: Option<Estimate>,
     /// Correlation matrix of (ln fc, ln D, ln tau, ln var) from the record.
     pub(crate) correlation: [[f64; 4]; 4],
     /// Drag of the axis, kg/s, and kB T, J.
@@ -35,11 +36,12 @@ pub(crate) struct PropagationInputs {
     pub(crate) metres_per_unit: Option<f64>,
 }
 
-/// The three stiffness estimates (pN/nm) with their covariance, and beta (nm/V) for volts.
+/// The three stiffness estimates (pN/nm) with their covariance, and beta (nm/V) for volts. A
+/// method that could not be computed is `None`, with zero rows in the covariance.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub(crate) struct Propagated {
     /// psd, acf, equipartition.
-    pub(crate) stiffness: [Estimate; 3],
+    pub(crate) stiffness: [Option<Estimate>; 3],
     pub(crate) covariance: [[f64; 3]; 3],
     pub(crate) sensitivity_nm_per_v: Option<Estimate>,
 }
@@ -69,11 +71,12 @@ fn log_rows(volts: bool) -> [[f64; 6]; 4] {
 /// Covariance of (ln kappa_psd, ln kappa_acf, ln kappa_eq, ln beta).
 fn log_covariance(inp: &PropagationInputs) -> [[f64; 4]; 4] {
     let rel = [
-        inp.corner_frequency_hz.relative_se(),
-        inp.diffusion.relative_se(),
-        inp.relaxation_time_s.relative_se(),
-        inp.variance.relative_se(),
-    ];
+        inp.corner_frequency_hz,
+        inp.diffusion,
+        inp.relaxation_time_s,
+        inp.variance,
+    ]
+    .map(|e| e.map_or(0.0, |e| e.relative_se()));
     let rows = log_rows(inp.metres_per_unit.is_none());
     let mut full = [[0.0f64; 4]; 4];
     for a in 0..4 {
@@ -104,29 +107,36 @@ pub(crate) fn propagate(inp: &PropagationInputs) -> Propagated {
     let full = log_covariance(inp);
     let gamma = inp.drag_kg_per_s;
     let kt = inp.thermal_energy_j;
-    let kappa_psd = 2.0 * PI * gamma * inp.corner_frequency_hz.value;
-    let kappa_acf = gamma / inp.relaxation_time_s.value;
-    let (kappa_eq, sensitivity) = match inp.metres_per_unit {
-        Some(scale) => (kt / (inp.variance.value * scale * scale), None),
-        None => {
-            let beta_m_per_v = (kt / gamma / inp.diffusion.value).sqrt();
-            let beta_nm = beta_m_per_v * 1e9;
-            (
-                kt / (beta_m_per_v * beta_m_per_v * inp.variance.value),
-                Some(Estimate::new(beta_nm, beta_nm * full[3][3].sqrt())),
-            )
-        }
+    let kappa_psd = inp
+        .corner_frequency_hz
+        .map(|fc| 2.0 * PI * gamma * fc.value);
+    let kappa_acf = inp.relaxation_time_s.map(|tau| gamma / tau.value);
+    let beta_m_per_v = match (inp.metres_per_unit, inp.diffusion) {
+        (None, Some(d)) => Some((kt / gamma / d.value).sqrt()),
+        _ => None,
     };
-    let values = [kappa_psd, kappa_acf, kappa_eq].map(|k| k * PN_PER_NM_PER_N_PER_M);
+    let kappa_eq = match (inp.variance, inp.metres_per_unit, beta_m_per_v) {
+        (Some(var), Some(scale), _) => Some(kt / (var.value * scale * scale)),
+        (Some(var), None, Some(beta)) => Some(kt / (beta * beta * var.value)),
+        _ => None,
+    };
+    let values = [kappa_psd, kappa_acf, kappa_eq].map(|k| k.map(|k| k * PN_PER_NM_PER_N_PER_M));
     let mut covariance = [[0.0; 3]; 3];
     for i in 0..3 {
         for j in 0..3 {
-            covariance[i][j] = full[i][j] * values[i] * values[j];
+            if let (Some(a), Some(b)) = (values[i], values[j]) {
+                covariance[i][j] = full[i][j] * a * b;
+            }
         }
     }
     Propagated {
-        stiffness: std::array::from_fn(|i| Estimate::new(values[i], covariance[i][i].sqrt())),
+        stiffness: std::array::from_fn(|i| {
+            values[i].map(|v| Estimate::new(v, covariance[i][i].sqrt()))
+        }),
         covariance,
-        sensitivity_nm_per_v: sensitivity,
+        sensitivity_nm_per_v: beta_m_per_v.map(|beta| {
+            let beta_nm = beta * 1e9;
+            Estimate::new(beta_nm, beta_nm * full[3][3].sqrt())
+        }),
     }
 }

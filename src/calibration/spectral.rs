@@ -9,7 +9,8 @@ use crate::spectrum::{
     SpectrumModel,
 };
 
-/// What the spectral stage found.
+/// What the spectral stage found. The periodogram always exists (a record too short for one
+/// stops the calibration); the fit may fail without sinking the other methods.
 #[derive(Clone, Debug)]
 pub(crate) struct SpectralStage {
     pub(crate) periodogram: Periodogram,
@@ -17,7 +18,7 @@ pub(crate) struct SpectralStage {
     pub(crate) peaks: Vec<NarrowPeak>,
     /// The one model of this axis's measured spectrum.
     pub(crate) model: SpectrumModel,
-    pub(crate) fit: SpectrumFit,
+    pub(crate) fit: Result<SpectrumFit, CalibrationError>,
 }
 
 /// The model of the measured spectrum these options and conditions describe.
@@ -79,7 +80,7 @@ pub(crate) fn spectral_stage(
             axis: name.to_string(),
             cause: e,
         }
-    })?;
+    });
     Ok(SpectralStage {
         periodogram,
         peaks,

@@ -129,9 +129,9 @@ fn nanometre_recordings_give_unbiased_stiffness_with_honest_errors_and_correlati
         let rec = record(10_000 + seed, 1 << 16, None, &Disturbances::default());
         let cal = calibrate(&rec, &conditions(), &AnalysisOptions::default()).expect("calibrates");
         let s = &cal.axes[0].stiffness_pn_per_nm;
-        psd.push(s.psd);
-        acf.push(s.acf);
-        eq.push(s.equipartition);
+        psd.push(s.psd.expect("psd stands"));
+        acf.push(s.acf.expect("acf stands"));
+        eq.push(s.equipartition.expect("equipartition stands"));
         cons.push(s.consensus);
         for i in 0..3 {
             for j in 0..3 {
@@ -170,7 +170,7 @@ fn volt_recordings_recover_the_sensitivity_without_bias() {
         let cal = calibrate(&rec, &conditions(), &AnalysisOptions::default()).expect("calibrates");
         let axis = &cal.axes[0];
         b.push(axis.sensitivity_nm_per_v.expect("volts give beta"));
-        psd.push(axis.stiffness_pn_per_nm.psd);
+        psd.push(axis.stiffness_pn_per_nm.psd.expect("psd stands"));
         assert!(!axis.stiffness_pn_per_nm.equipartition_independent);
         assert_eq!(axis.stiffness_pn_per_nm.consensus_weights[2], 0.0);
     }
@@ -222,6 +222,7 @@ fn mains_hum_is_found_and_does_not_bias_the_spectral_stiffness() {
         ("acf", s.acf),
         ("equipartition", s.equipartition),
     ] {
+        let e = e.expect("every method stands");
         assert!(
             ((e.value - KAPPA_PN_PER_NM) / e.se).abs() < 4.0,
             "{name} {e:?}"
@@ -363,7 +364,7 @@ fn a_corner_frequency_near_nyquist_is_reported() {
         axis.findings
     );
     // Aliasing is modelled, so the estimate is still right.
-    let psd = axis.stiffness_pn_per_nm.psd;
+    let psd = axis.stiffness_pn_per_nm.psd.expect("psd stands");
     assert!(
         ((psd.value - KAPPA_PN_PER_NM) / psd.se).abs() < 4.0,
         "{psd:?}"
@@ -399,9 +400,9 @@ fn long_records_averaged_over_segments_keep_unbiased_estimates_and_honest_errors
         let axis = &cal.axes[0];
         assert_eq!(axis.n_windows, 2);
         let s = &axis.stiffness_pn_per_nm;
-        psd.push(s.psd);
-        acf.push(s.acf);
-        eq.push(s.equipartition);
+        psd.push(s.psd.expect("psd stands"));
+        acf.push(s.acf.expect("acf stands"));
+        eq.push(s.equipartition.expect("equipartition stands"));
         cons.push(s.consensus);
     }
     check_unbiased_and_honest("psd", &psd, KAPPA_PN_PER_NM);

@@ -7,44 +7,67 @@ use crate::autocorrelation::{self, ExponentialFit};
 use crate::equipartition::{self, VarianceEstimate};
 use std::f64::consts::PI;
 
-/// What the time-domain stage found.
+/// What the time-domain stage found: each method may fail alone.
 #[derive(Clone, Debug)]
 pub(crate) struct TimeDomainStage {
-    pub(crate) acf: ExponentialFit,
-    pub(crate) variance: VarianceEstimate,
-    pub(crate) histogram: Histogram,
+    pub(crate) acf: Result<ExponentialFit, CalibrationError>,
+    pub(crate) variance: Result<VarianceEstimate, CalibrationError>,
+    /// The position histogram, when the variance exists.
+    pub(crate) histogram: Option<Histogram>,
 }
 
 /// Runs the autocorrelation and equipartition methods. `corner_frequency_hint_hz` (the
-/// spectral estimate) sets the lag window: several relaxation times serve both the fit and the
-/// variance's standard error.
+/// spectral estimate, when the spectral fit worked) sets the lag window: several relaxation
+/// times serve both the fit and the variance's standard error. Without it the window comes
+/// from the lag-1 correlation of the record itself (tau = -dt / ln rho_1 for an exponential
+/// decay, the autocorrelation of an Ornstein-Uhlenbeck process).
 pub(crate) fn time_domain_stage(
     name: &str,
     samples: &[f64],
     sample_rate_hz: f64,
-    corner_frequency_hint_hz: f64,
+    corner_frequency_hint_hz: Option<f64>,
     options: &AnalysisOptions,
-) -> Result<TimeDomainStage, CalibrationError> {
-    let tau_guess = 1.0 / (2.0 * PI * corner_frequency_hint_hz);
+) -> TimeDomainStage {
+    let tau_guess = corner_frequency_hint_hz
+        .map(|fc| 1.0 / (2.0 * PI * fc))
+        .unwrap_or_else(|| relaxation_time_from_lag_one(samples, sample_rate_hz));
     let lags_needed =
-        ((8.0 * tau_guess * sample_rate_hz).ceil() as usize).clamp(16, samples.len() / 4);
+        ((8.0 * tau_guess * sample_rate_hz).ceil() as usize).clamp(16, (samples.len() / 4).max(16));
     let acov = autocorrelation::autocovariance(samples, lags_needed);
     let acf = autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &options.acf)
         .map_err(|e| CalibrationError::Autocorrelation {
             axis: name.to_string(),
             cause: e,
-        })?;
+        });
     let variance = equipartition::variance(samples, sample_rate_hz, options.detrend, &acov)
         .map_err(|e| CalibrationError::Equipartition {
             axis: name.to_string(),
             cause: e,
-        })?;
-    let histogram = histogram(samples, variance.mean, variance.variance);
-    Ok(TimeDomainStage {
+        });
+    let histogram = variance
+        .as_ref()
+        .ok()
+        .map(|v| histogram(samples, v.mean, v.variance));
+    TimeDomainStage {
         acf,
         variance,
         histogram,
-    })
+    }
+}
+
+/// Relaxation time (s) from the lag-1 correlation, for the lag window only; 16 samples when the
+/// correlation does not decay like an exponential.
+fn relaxation_time_from_lag_one(samples: &[f64], sample_rate_hz: f64) -> f64 {
+    let acov = autocorrelation::autocovariance(samples, 1);
+    let rho1 = match acov.as_slice() {
+        [c0, c1] if *c0 > 0.0 => c1 / c0,
+        _ => f64::NAN,
+    };
+    if rho1 > 0.0 && rho1 < 1.0 {
+        -1.0 / (sample_rate_hz * rho1.ln())
+    } else {
+        16.0 / sample_rate_hz
+    }
 }
 
 /// Histogram over mean +- 4.5 standard deviations in 61 bins, with the expected counts of the

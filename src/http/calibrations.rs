@@ -370,7 +370,7 @@ pub(crate) async fn history(
                 created_at_ms: row.created_at_ms,
                 stiffness_pn_per_nm: axis.stiffness_pn_per_nm.consensus.into(),
                 sensitivity_nm_per_v: axis.sensitivity_nm_per_v.map(Into::into),
-                corner_frequency_hz: axis.corner_frequency_hz.into(),
+                corner_frequency_hz: axis.corner_frequency_hz.map(Into::into),
                 verdict: axis.verdict.clone(),
             };
             match axes.iter_mut().find(|a| a.axis == axis.axis) {

@@ -60,15 +60,16 @@ pub struct CalibrationPage {
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
 pub struct AxisPlots {
     pub axis: String,
-    /// Blocked one-sided spectrum and fitted model (unit^2/Hz), residuals in standard errors.
-    #[schema(value_type = Object)]
-    pub spectrum: SpectrumPlot,
-    /// Autocovariance (unit^2) against lag (s) with the fitted exponential.
-    #[schema(value_type = Object)]
-    pub autocorrelation: AcfPlot,
-    /// Position histogram with the equipartition Gaussian.
-    #[schema(value_type = Object)]
-    pub histogram: HistogramPlot,
+    /// Blocked one-sided spectrum and fitted model (unit^2/Hz), residuals in standard errors;
+    /// null when the spectral fit failed.
+    #[schema(value_type = Option<Object>)]
+    pub spectrum: Option<SpectrumPlot>,
+    /// Autocovariance (unit^2) against lag (s) with the fitted model; null when that fit failed.
+    #[schema(value_type = Option<Object>)]
+    pub autocorrelation: Option<AcfPlot>,
+    /// Position histogram with the equipartition Gaussian; null when the variance failed.
+    #[schema(value_type = Option<Object>)]
+    pub histogram: Option<HistogramPlot>,
 }
 
 /// Plot arrays of a calibration.
@@ -103,9 +104,9 @@ pub struct HistoryPoint {
     pub stiffness_pn_per_nm: ValueWithSe,
     /// Detector sensitivity beta, nm/V; null for nanometre recordings.
     pub sensitivity_nm_per_v: Option<ValueWithSe>,
-    /// Corner frequency fc, Hz.
-    pub corner_frequency_hz: ValueWithSe,
-    /// `consistent` or `inconsistent`.
+    /// Corner frequency fc, Hz; null when the spectral fit failed.
+    pub corner_frequency_hz: Option<ValueWithSe>,
+    /// `consistent`, `inconsistent`, `unchecked` or `unreliable`.
     pub verdict: String,
 }
 

@@ -121,10 +121,13 @@ pub struct AxisReport {
     /// gamma / gamma0 from the wall correction (1 in bulk).
     pub wall_factor: f64,
     pub drag_pn_s_per_nm: ValueSe,
-    pub corner_frequency_hz: ValueSe,
-    pub relaxation_time_s: ValueSe,
-    /// Fitted diffusion coefficient in `diffusion_unit` (one-sided spectrum convention).
-    pub diffusion: ValueSe,
+    /// From the spectral fit; null when that method failed (a `method-failed` finding says why).
+    pub corner_frequency_hz: Option<ValueSe>,
+    /// From the autocorrelation fit; null when that method failed.
+    pub relaxation_time_s: Option<ValueSe>,
+    /// Fitted diffusion coefficient in `diffusion_unit` (one-sided spectrum convention); null
+    /// when the spectral fit failed.
+    pub diffusion: Option<ValueSe>,
     /// `nm^2/s` or `V^2/s`.
     pub diffusion_unit: String,
     /// Einstein's kB T / gamma, nm^2/s.
@@ -139,9 +142,10 @@ pub struct AxisReport {
     pub findings: Vec<FindingReport>,
     /// Whether the standard errors include the run conditions' uncertainties.
     pub errors_include_conditions: bool,
-    pub spectrum_fit: SpectrumFitReport,
-    pub autocorrelation_fit: AcfFitReport,
-    pub equipartition: EquipartitionReport,
+    /// Each method's own fit; null for a method that failed.
+    pub spectrum_fit: Option<SpectrumFitReport>,
+    pub autocorrelation_fit: Option<AcfFitReport>,
+    pub equipartition: Option<EquipartitionReport>,
     /// Arrays for plotting; omitted where a caller asked for the summary only.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub plots: Option<Plots>,
@@ -149,9 +153,10 @@ pub struct AxisReport {
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct StiffnessReport {
-    pub psd: ValueSe,
-    pub acf: ValueSe,
-    pub equipartition: ValueSe,
+    /// Each method's estimate; null for a method that failed on this record.
+    pub psd: Option<ValueSe>,
+    pub acf: Option<ValueSe>,
+    pub equipartition: Option<ValueSe>,
     pub consensus: ValueSe,
     /// False for volt data: equipartition then uses beta from the spectral fit and is left out
     /// of the consensus.
@@ -159,6 +164,10 @@ pub struct StiffnessReport {
     pub consensus_weights: MethodTriple,
     /// Correlation matrix of (psd, acf, equipartition).
     pub correlation: [[f64; 3]; 3],
+    /// Methods left out of the consensus, each with the reason (its value stands, its weight is
+    /// zero): its own fit was rejected, or its model cannot describe what the data hold.
+    #[serde(default)]
+    pub excluded: std::collections::BTreeMap<String, String>,
 }
 
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
@@ -253,9 +262,10 @@ pub struct LineReport {
 /// Arrays for plotting.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct Plots {
-    pub spectrum: SpectrumPlot,
-    pub autocorrelation: AcfPlot,
-    pub histogram: HistogramPlot,
+    /// Null where the method behind the plot failed.
+    pub spectrum: Option<SpectrumPlot>,
+    pub autocorrelation: Option<AcfPlot>,
+    pub histogram: Option<HistogramPlot>,
 }
 
 /// The blocked one-sided spectrum and the fitted model at the same frequencies; residual =
@@ -386,8 +396,10 @@ fn axis_report(
 ) -> AxisReport {
     let s = &a.stiffness_pn_per_nm;
     let u = unit.suffix();
-    let fit = &a.spectrum;
-    let detector_filter = match (options.filter, fit.fitted_filter) {
+    let detector_filter = match (
+        options.filter,
+        a.spectrum.as_ref().and_then(|f| f.fitted_filter),
+    ) {
         (FilterSetting::Fitted(_), Some(f)) => Some(FilterReport {
             f3db_hz: ValueSe {
                 value: f.f3db_hz,
@@ -418,15 +430,15 @@ fn axis_report(
         orientation: orientation_name(a.orientation).into(),
         wall_factor: a.wall_factor,
         drag_pn_s_per_nm: scaled(a.drag_kg_per_s, 1e3),
-        corner_frequency_hz: a.corner_frequency_hz.into(),
-        relaxation_time_s: a.relaxation_time_s.into(),
-        diffusion: a.diffusion.into(),
+        corner_frequency_hz: a.corner_frequency_hz.map(Into::into),
+        relaxation_time_s: a.relaxation_time_s.map(Into::into),
+        diffusion: a.diffusion.map(Into::into),
         diffusion_unit: format!("{u}^2/s"),
         diffusion_theory_nm2_per_s: a.diffusion_theory_m2_per_s * 1e18,
         stiffness_pn_per_nm: StiffnessReport {
-            psd: s.psd.into(),
-            acf: s.acf.into(),
-            equipartition: s.equipartition.into(),
+            psd: s.psd.map(Into::into),
+            acf: s.acf.map(Into::into),
+            equipartition: s.equipartition.map(Into::into),
             consensus: s.consensus.into(),
             equipartition_independent: s.equipartition_independent,
             consensus_weights: MethodTriple {
@@ -435,6 +447,12 @@ fn axis_report(
                 equipartition: s.consensus_weights[2],
             },
             correlation: s.correlation,
+            excluded: s
+                .excluded
+                .iter()
+                .zip(crate::calibration::METHODS)
+                .filter_map(|(r, m)| r.as_ref().map(|r| (m.to_string(), r.clone())))
+                .collect(),
         },
         sensitivity_nm_per_v: a.sensitivity_nm_per_v.map(ValueSe::from),
         verdict: a.verdict.name().into(),
@@ -460,7 +478,7 @@ fn axis_report(
             })
             .collect(),
         errors_include_conditions: a.includes_input_errors,
-        spectrum_fit: SpectrumFitReport {
+        spectrum_fit: a.spectrum.as_ref().map(|fit| SpectrumFitReport {
             fit_min_hz: fit.f_min_hz,
             fit_max_hz: fit.f_max_hz,
             chi_square: fit.chi_square,
@@ -483,22 +501,22 @@ fn axis_report(
                     harmonic: p.mains.map(|m| m.1),
                 })
                 .collect(),
-        },
-        autocorrelation_fit: AcfFitReport {
-            first_lag: a.acf.lags.first().copied().unwrap_or(0),
-            last_lag: a.acf.lags.last().copied().unwrap_or(0),
-            lags_used: a.acf.lags.len(),
-            chi_square: a.acf.chi_square,
-            degrees_of_freedom: a.acf.degrees_of_freedom,
-        },
-        equipartition: EquipartitionReport {
+        }),
+        autocorrelation_fit: a.acf.as_ref().map(|acf| AcfFitReport {
+            first_lag: acf.lags.first().copied().unwrap_or(0),
+            last_lag: acf.lags.last().copied().unwrap_or(0),
+            lags_used: acf.lags.len(),
+            chi_square: acf.chi_square,
+            degrees_of_freedom: acf.degrees_of_freedom,
+        }),
+        equipartition: a.variance.as_ref().map(|variance| EquipartitionReport {
             variance: ValueSe {
-                value: a.variance.variance,
-                se: a.variance.variance_se,
+                value: variance.variance,
+                se: variance.variance_se,
             },
             variance_unit: format!("{u}^2"),
-            mean: a.variance.mean,
-            slope_per_s: a.variance.slope_per_s,
+            mean: variance.mean,
+            slope_per_s: variance.slope_per_s,
             lines_removed: a
                 .lines_removed
                 .iter()
@@ -512,42 +530,39 @@ fn axis_report(
                 Detrend::Linear => "linear",
             }
             .into(),
-        },
+        }),
         plots,
     }
 }
 
 fn plots(a: &AxisCalibration) -> Plots {
-    let fit = &a.spectrum;
-    let residual = fit
-        .blocks
-        .iter()
-        .zip(&fit.model_psd)
-        .map(|(b, m)| (b.psd - m) / (m / (b.n_averaged as f64).sqrt()))
-        .collect();
     Plots {
-        spectrum: SpectrumPlot {
+        spectrum: a.spectrum.as_ref().map(|fit| SpectrumPlot {
             frequency_hz: fit.blocks.iter().map(|b| b.frequency_hz).collect(),
             psd: fit.blocks.iter().map(|b| b.psd).collect(),
             model: fit.model_psd.clone(),
             n_averaged: fit.blocks.iter().map(|b| b.n_averaged).collect(),
-            residual,
-        },
-        autocorrelation: AcfPlot {
-            lag_s: a
-                .acf
+            residual: fit
+                .blocks
+                .iter()
+                .zip(&fit.model_psd)
+                .map(|(b, m)| (b.psd - m) / (m / (b.n_averaged as f64).sqrt()))
+                .collect(),
+        }),
+        autocorrelation: a.acf.as_ref().map(|acf| AcfPlot {
+            lag_s: acf
                 .lags
                 .iter()
                 .map(|&k| k as f64 / a.sample_rate_hz)
                 .collect(),
-            autocovariance: a.acf.acov.clone(),
-            model: a.acf.model.clone(),
-        },
-        histogram: HistogramPlot {
-            centre: a.histogram.centres.clone(),
-            bin_width: a.histogram.bin_width,
-            count: a.histogram.counts.clone(),
-            expected: a.histogram.expected.clone(),
-        },
+            autocovariance: acf.acov.clone(),
+            model: acf.model.clone(),
+        }),
+        histogram: a.histogram.as_ref().map(|h| HistogramPlot {
+            centre: h.centres.clone(),
+            bin_width: h.bin_width,
+            count: h.counts.clone(),
+            expected: h.expected.clone(),
+        }),
     }
 }

@@ -13,6 +13,11 @@ pub(crate) fn pm(v: &ValueSe) -> String {
     format!("{:.*} ± {:.*}", digits, v.value, digits, v.se)
 }
 
+/// `pm` of a value that may be missing (a failed method), or a dash.
+fn pm_or_dash(v: Option<&ValueSe>) -> String {
+    v.map(pm).unwrap_or_else(|| "failed".into())
+}
+
 /// A readable multi-line summary of a report: inputs, one row per axis, the verdicts and the
 /// findings.
 pub fn summary_table(r: &CalibrationReport) -> String {
@@ -61,21 +66,21 @@ pub fn summary_table(r: &CalibrationReport) -> String {
     let mut rows: Vec<[String; 9]> = Vec::new();
     for a in &r.axes {
         let k = &a.stiffness_pn_per_nm;
-        let tau_ms = ValueSe {
-            value: a.relaxation_time_s.value * 1e3,
-            se: a.relaxation_time_s.se * 1e3,
-        };
+        let tau_ms = a.relaxation_time_s.map(|t| ValueSe {
+            value: t.value * 1e3,
+            se: t.se * 1e3,
+        });
         let eq = if k.equipartition_independent {
-            pm(&k.equipartition)
+            pm_or_dash(k.equipartition.as_ref())
         } else {
-            format!("{} *", pm(&k.equipartition))
+            format!("{} *", pm_or_dash(k.equipartition.as_ref()))
         };
         rows.push([
             a.axis.clone(),
-            pm(&a.corner_frequency_hz),
-            pm(&tau_ms),
-            pm(&k.psd),
-            pm(&k.acf),
+            pm_or_dash(a.corner_frequency_hz.as_ref()),
+            pm_or_dash(tau_ms.as_ref()),
+            pm_or_dash(k.psd.as_ref()),
+            pm_or_dash(k.acf.as_ref()),
             eq,
             pm(&k.consensus),
             a.sensitivity_nm_per_v

@@ -100,11 +100,78 @@ pub struct SpectrumFit {
     pub model: SpectrumModel,
 }
 
+/// Smallest reciprocal condition number (smallest over largest eigenvalue) of the parameters'
+/// correlation matrix for a fit to count as identifiable. Below it the Fisher information is
+/// numerically singular: some combination of the parameters is not fixed by the data, and the
+/// standard errors of a linearised inverse cannot be trusted (common practice; the value is a
+/// choice well above the rounding level of a 4 x 4 inverse, about 1e-12).
+pub const MIN_PARAMETER_RCOND: f64 = 1e-8;
+
 impl SpectrumFit {
     /// The fitted model's one-sided PSD at `f_hz`, signal-units^2/Hz.
     pub fn model_psd_at(&self, f_hz: f64) -> f64 {
         self.model.one_sided_psd(f_hz, &self.theta)
     }
+
+    /// Why the fitted parameters are not identified by the data, or `None` when they are.
+    ///
+    /// A parameter whose standard error exceeds its value, or a near-singular correlation
+    /// matrix (reciprocal condition number below [`MIN_PARAMETER_RCOND`]), means the fit sits on
+    /// a ridge of the likelihood: with a fitted photodiode filter, typically fc against f3dB when
+    /// the two are close and alpha is small (Berg-Sorensen, Oddershede, Florin & Flyvbjerg,
+    /// J. Appl. Phys. 93, 3167 (2003), recalled from memory, unverified, advise calibrating the
+    /// filter separately for this reason).
+    pub fn unidentified_reason(&self) -> Option<String> {
+        let mut loose = Vec::new();
+        if !(self.corner_frequency_se_hz <= self.corner_frequency_hz) {
+            loose.push(format!(
+                "fc = {:.0} +- {:.3e} Hz",
+                self.corner_frequency_hz, self.corner_frequency_se_hz
+            ));
+        }
+        if let Some(f) = &self.fitted_filter {
+            if !(f.f3db_se_hz <= f.f3db_hz) {
+                loose.push(format!(
+                    "f3dB = {:.0} +- {:.3e} Hz",
+                    f.f3db_hz, f.f3db_se_hz
+                ));
+            }
+            if !(f.alpha_se <= f.alpha) {
+                loose.push(format!("alpha = {:.3} +- {:.3e}", f.alpha, f.alpha_se));
+            }
+        }
+        if !loose.is_empty() {
+            return Some(format!(
+                "the data do not fix the spectral parameters ({})",
+                loose.join(", ")
+            ));
+        }
+        let rcond = correlation_rcond(&self.covariance);
+        (!(rcond >= MIN_PARAMETER_RCOND)).then(|| {
+            format!(
+                "the spectral parameters are nearly degenerate (reciprocal condition number of their correlation matrix {rcond:.1e})"
+            )
+        })
+    }
+}
+
+/// Reciprocal condition number of the correlation matrix of a covariance matrix (NaN for an
+/// empty or non-finite one).
+fn correlation_rcond(covariance: &[Vec<f64>]) -> f64 {
+    let n = covariance.len();
+    if n == 0 {
+        return f64::NAN;
+    }
+    let corr = nalgebra::DMatrix::from_fn(n, n, |i, j| {
+        covariance[i][j] / (covariance[i][i] * covariance[j][j]).sqrt()
+    });
+    if corr.iter().any(|v| !v.is_finite()) {
+        return f64::NAN;
+    }
+    let eig = corr.symmetric_eigenvalues();
+    let max = eig.iter().copied().fold(f64::MIN, f64::max);
+    let min = eig.iter().copied().fold(f64::MAX, f64::min);
+    min / max
 }
 
 /// A fitted photodiode filter with standard errors.

@@ -20,8 +20,8 @@ mod peaks;
 mod tests;
 
 pub use fit::{
-    FitRange, PlainLorentzianFit, SpectrumFit, SpectrumFitError, SpectrumFitOptions, fit_spectrum,
-    plain_lorentzian_wls,
+    FitRange, MIN_PARAMETER_RCOND, PlainLorentzianFit, SpectrumFit, SpectrumFitError,
+    SpectrumFitOptions, fit_spectrum, plain_lorentzian_wls,
 };
 pub use lines::{SpectralLine, fit_line, subtract_lines};
 pub(crate) use model::Params;
