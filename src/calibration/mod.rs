@@ -10,6 +10,8 @@ mod axis;
 mod conditions;
 pub mod consensus;
 mod covariance;
+#[cfg(test)]
+mod exclusion_tests;
 mod propagation;
 mod spectral;
 #[cfg(test)]
