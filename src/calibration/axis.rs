@@ -8,7 +8,7 @@ use super::conditions::{self, AxisDrag};
 use super::consensus;
 use super::covariance;
 use super::propagation::{self, Propagated, PropagationInputs};
-use super::spectral::{self, LineRemoval, SpectralStage};
+use super::spectral::{self, SpectralStage};
 use super::time_domain::{self, TimeDomainStage};
 use super::{
     AnalysisOptions, AxisCalibration, CalibrationError, MethodFailure, Physics, RunConditions,
@@ -51,16 +51,11 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     let model = spectral::spectrum_model(sample_rate_hz, conditions, physics, options);
     let spectral = spectral::spectral_stage(name, &samples, model, options)?;
 
-    // The spectral fit leaves the peaks' bins out; the time-domain methods need the lines
-    // themselves taken out of the record. Removing a line can leave a trace of a trend, so the
-    // cleaned record is detrended again and the time-domain methods see exactly what they assume.
-    let lines = spectral::remove_lines(
-        &samples,
-        sample_rate_hz,
-        &spectral.peaks,
-        &spectral.periodogram,
-    );
-    let cleaned = lines
+    // The lines were taken out of the record before the periodogram; the time-domain methods
+    // see the same cleaned record. Removing a line can leave a trace of a trend, so the cleaned
+    // record is detrended again and the time-domain methods see exactly what they assume.
+    let cleaned = spectral
+        .lines
         .cleaned
         .as_ref()
         .map(|y| equipartition::detrended(y, options.detrend));
@@ -113,8 +108,8 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         height_m: conditions.height_m,
         hydrodynamics: options.hydrodynamics,
         relaxation_time_s: time.acf.as_ref().ok().map(|a| a.relaxation_time_s),
-        lines_removed: lines.removed.len(),
-        lines_kept: lines.kept,
+        lines_removed: spectral.lines.removed.len(),
+        lines_kept: spectral.lines.kept,
         failed_methods: &failure_texts,
     });
     Ok(assemble(
@@ -127,7 +122,6 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         stiffness,
         findings,
         failures,
-        lines,
         sample_rate_hz,
     ))
 }
@@ -401,7 +395,6 @@ fn assemble(
     stiffness: ConsensusStage,
     findings: Vec<findings::Finding>,
     failures: Vec<MethodFailure>,
-    lines: LineRemoval,
     sample_rate_hz: f64,
 ) -> AxisCalibration {
     let fit = spectral.fit.ok();
@@ -437,6 +430,6 @@ fn assemble(
         failures,
         includes_input_errors: drag.includes_input_errors,
         sample_rate_hz,
-        lines_removed: lines.removed,
+        lines_removed: spectral.lines.removed,
     }
 }

@@ -13,6 +13,8 @@ mod covariance;
 #[cfg(test)]
 mod exclusion_tests;
 mod propagation;
+#[cfg(test)]
+mod real_instrument_tests;
 mod spectral;
 #[cfg(test)]
 mod tests;

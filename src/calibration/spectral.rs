@@ -13,7 +13,11 @@ use crate::spectrum::{
 /// stops the calibration); the fit may fail without sinking the other methods.
 #[derive(Clone, Debug)]
 pub(crate) struct SpectralStage {
+    /// The periodogram the fit saw: of the record with its lines subtracted, when there were
+    /// any.
     pub(crate) periodogram: Periodogram,
+    /// The sinusoids behind the narrow peaks, fitted and subtracted from the record.
+    pub(crate) lines: LineRemoval,
     /// Narrow peaks at or above the fit range's lower end.
     pub(crate) peaks: Vec<NarrowPeak>,
     /// The one model of this axis's measured spectrum.
@@ -49,6 +53,13 @@ pub(crate) fn spectrum_model(
 }
 
 /// Periodogram, peaks and the spectral fit of one axis.
+///
+/// Strong sinusoids (mains harmonics, mechanical lines, a stage drive), on or off the Fourier
+/// grid, are fitted and subtracted from the record before the periodogram the fit sees: masking
+/// their bins alone is not enough, because an off-grid line leaks into dozens of neighbouring
+/// bins (the Dirichlet kernel of an untapered segment falls off only as 1/k^2). The few bins at
+/// each line are still left out of the fit, since the subtraction takes two degrees of freedom
+/// (amplitude and phase) there.
 pub(crate) fn spectral_stage(
     name: &str,
     samples: &[f64],
@@ -58,20 +69,27 @@ pub(crate) fn spectral_stage(
     let n_windows = options
         .n_windows
         .unwrap_or_else(|| super::default_windows(samples.len()));
-    let periodogram = spectrum::periodogram(samples, model.sample_rate_hz, n_windows).ok_or(
-        CalibrationError::TooShort {
-            axis: name.to_string(),
-            n_samples: samples.len(),
-        },
-    )?;
+    let too_short = || CalibrationError::TooShort {
+        axis: name.to_string(),
+        n_samples: samples.len(),
+    };
+    let raw_periodogram =
+        spectrum::periodogram(samples, model.sample_rate_hz, n_windows).ok_or_else(too_short)?;
     let mut fit_options = SpectrumFitOptions::new(model);
     fit_options.range = options.fit_range;
     // Peaks below the fit range are drift, which has its own finding.
-    let f_min_hz = fit_options.resolved_range(&periodogram).0;
-    let peaks: Vec<NarrowPeak> = spectrum::find_narrow_peaks(&periodogram, 0.01)
+    let f_min_hz = fit_options.resolved_range(&raw_periodogram).0;
+    let peaks: Vec<NarrowPeak> = spectrum::find_narrow_peaks(&raw_periodogram, 0.01)
         .into_iter()
         .filter(|p| p.frequency_hz >= f_min_hz)
         .collect();
+    let lines = remove_lines(samples, model.sample_rate_hz, &peaks, &raw_periodogram);
+    let periodogram = match &lines.cleaned {
+        Some(cleaned) => {
+            spectrum::periodogram(cleaned, model.sample_rate_hz, n_windows).ok_or_else(too_short)?
+        }
+        None => raw_periodogram,
+    };
     if options.exclude_peaks {
         fit_options.excluded_bins = excluded_bins(&peaks, periodogram.psd.len());
     }
@@ -83,6 +101,7 @@ pub(crate) fn spectral_stage(
     });
     Ok(SpectralStage {
         periodogram,
+        lines,
         peaks,
         model,
         fit,
@@ -118,7 +137,7 @@ pub(crate) struct LineRemoval {
 }
 
 /// Fits and subtracts the sinusoids behind the narrow peaks.
-pub(crate) fn remove_lines(
+fn remove_lines(
     samples: &[f64],
     sample_rate_hz: f64,
     peaks: &[NarrowPeak],
