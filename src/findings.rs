@@ -83,12 +83,16 @@ pub struct FindingInputs<'a> {
     pub lines_kept: usize,
     /// Methods that failed on this axis, with the error's message.
     pub failed_methods: &'a [(&'a str, String)],
+    /// Why the power-spectrum method was left out of the consensus, if it was (beta in volts
+    /// rests on the same fit).
+    pub spectrum_excluded: Option<&'a str>,
 }
 
 /// Runs every check on one axis.
 pub fn assess(inp: &FindingInputs<'_>) -> Vec<Finding> {
     let mut out = Vec::new();
     failed_methods(inp, &mut out);
+    sensitivity(inp, &mut out);
     precision(inp, &mut out);
     nyquist(inp, &mut out);
     saturation(inp, &mut out);
@@ -112,6 +116,24 @@ fn failed_methods(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
             Severity::Error,
             format!(
                 "axis {}: the {method} method failed ({error}); the result rests on the other methods",
+                inp.axis
+            ),
+        ));
+    }
+}
+
+/// In volts, beta = sqrt(D_theory / D_V) comes from the spectral fit: when that fit was left out
+/// of the consensus, beta is no more trustworthy than the fit.
+fn sensitivity(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
+    if inp.unit != PositionUnit::Volt {
+        return;
+    }
+    if let Some(reason) = inp.spectrum_excluded {
+        out.push(finding(
+            "sensitivity-unreliable",
+            Severity::Error,
+            format!(
+                "axis {}: the sensitivity beta comes from the spectral fit, which was left out ({reason}); do not use this beta: model what the spectrum holds (detector filter, noise floor, drag) or remove the disturbance, and calibrate again",
                 inp.axis
             ),
         ));

@@ -111,6 +111,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         lines_removed: spectral.lines.removed.len(),
         lines_kept: spectral.lines.kept,
         failed_methods: &failure_texts,
+        spectrum_excluded: stiffness.stiffness.excluded[0].as_deref(),
     });
     Ok(assemble(
         name,

@@ -212,13 +212,18 @@ pub enum SpectrumFitError {
 struct Whittle<'a> {
     model: &'a SpectrumModel,
     blocks: &'a [Block],
+    /// Samples per periodogram segment, for the leakage term of the expected periodogram.
+    segment_len: Option<usize>,
 }
 
 impl Whittle<'_> {
     fn model_means(&self, p: &Params) -> Vec<f64> {
         self.blocks
             .iter()
-            .map(|b| self.model.block_mean(b.lower_hz, b.upper_hz, p))
+            .map(|b| {
+                self.model
+                    .block_mean(b.lower_hz, b.upper_hz, p, self.segment_len)
+            })
             .collect()
     }
 
@@ -226,7 +231,9 @@ impl Whittle<'_> {
         let p = self.model.decode(theta);
         let mut total = 0.0;
         for b in self.blocks {
-            let s = self.model.block_mean(b.lower_hz, b.upper_hz, &p);
+            let s = self
+                .model
+                .block_mean(b.lower_hz, b.upper_hz, &p, self.segment_len);
             if !(s.is_finite() && s > 0.0) {
                 return f64::INFINITY;
             }
@@ -329,6 +336,7 @@ pub fn fit_spectrum(
     let whittle = Whittle {
         model,
         blocks: &blocks,
+        segment_len: Some(periodogram.segment_len),
     };
     let mut theta = model.initial_theta(fc0, d0);
     let (mut theta_opt, mut iterations, converged) = fisher_scoring(&whittle, theta.clone(), 200);
@@ -450,6 +458,7 @@ fn nelder_mead(w: &Whittle<'_>, theta: &[f64]) -> Option<Vec<f64>> {
     let problem = Whittle {
         model: w.model,
         blocks: w.blocks,
+        segment_len: w.segment_len,
     };
     let result = Executor::new(problem, solver)
         .configure(|state| state.max_iters(2000))

@@ -157,10 +157,42 @@ impl SpectrumModel {
         }
     }
 
+    /// The model's autocovariance as a sum of exponentials, as (corner frequency Hz, variance
+    /// signal-unit^2) pairs, when it is one: the plain Lorentzian is one exponential, and the
+    /// photodiode-filtered Lorentzian two, by partial fractions of g(f) S(f):
+    /// C(t) = A1 exp(-2 pi fc |t|) + A2 exp(-2 pi f3 |t|) with
+    /// A1 = (D / 2 pi fc) [alpha^2 + (1 - alpha^2) f3^2 / (f3^2 - fc^2)] and
+    /// A2 = -(1 - alpha^2) f3^2 / (f3^2 - fc^2) (D / 2 pi f3) (derived; the form is that of
+    /// shared PHYSICS.md section 12, checked there against a numerical cosine transform).
+    /// `None` with frequency-dependent drag, and when fc and f3 nearly coincide (the partial
+    /// fractions cancel badly there).
+    fn exponential_components(&self, p: &Params) -> Option<[(f64, f64); 2]> {
+        if self.hydro.is_some() {
+            return None;
+        }
+        let variance = p.d / (2.0 * PI * p.fc);
+        let Some(filter) = p.filter else {
+            return Some([(p.fc, variance), (p.fc, 0.0)]);
+        };
+        let f3 = filter.f3db_hz;
+        let a2 = filter.alpha * filter.alpha;
+        let gap = f3.mul_add(f3, -(p.fc * p.fc));
+        if !(gap.abs() > 1e-3 * f3 * f3) {
+            return None;
+        }
+        let ratio = (1.0 - a2) * f3 * f3 / gap;
+        Some([
+            (p.fc, variance * (a2 + ratio)),
+            (f3, -ratio * p.d / (2.0 * PI * f3)),
+        ])
+    }
+
     /// Expected one-sided PSD at `f_hz` (0 <= f <= f_Nyquist) for parameters `theta`.
     ///
-    /// With aliasing and neither filter nor hydrodynamics the closed form is used. Otherwise the
-    /// filter and the drag act before sampling, so the aliases are summed numerically,
+    /// With aliasing and an autocovariance that is a sum of exponentials (no hydrodynamics) the
+    /// closed form is used: each exponential of variance A and corner f_j samples to an aliased
+    /// Lorentzian (Berg-Sorensen & Flyvbjerg 2004), so the sum is exact. Otherwise the filter
+    /// and the drag act before sampling, so the aliases are summed numerically,
     /// sum_{|n| <= M} g(f + n fs) S(f + n fs), and the images beyond M are added as the exact
     /// Lorentzian tail (closed form minus its partial sum) scaled by the ratio of the full model
     /// to the Lorentzian at the cut-off, which is constant to first order out there
@@ -170,10 +202,16 @@ impl SpectrumModel {
             return self.unaliased(f_hz, p);
         }
         let fs = self.sample_rate_hz;
-        let closed = aliased_lorentzian_one_sided(f_hz, p.fc, p.d, fs);
-        if p.filter.is_none() && self.hydro.is_none() {
-            return closed;
+        if let Some(components) = self.exponential_components(p) {
+            return components
+                .iter()
+                .filter(|(_, variance)| *variance != 0.0)
+                .map(|&(f_j, variance)| {
+                    aliased_lorentzian_one_sided(f_hz, f_j, variance * 2.0 * PI * f_j, fs)
+                })
+                .sum();
         }
+        let closed = aliased_lorentzian_one_sided(f_hz, p.fc, p.d, fs);
         let mut sum = 0.0;
         let mut lorentz_partial = 0.0;
         for n in -ALIAS_TERMS..=ALIAS_TERMS {
@@ -186,20 +224,74 @@ impl SpectrumModel {
         (closed - lorentz_partial).max(0.0).mul_add(ratio, sum)
     }
 
+    /// The finite-segment (leakage) term of the expected periodogram of untapered segments of
+    /// `segment_len` samples, one-sided, signal-unit^2/Hz.
+    ///
+    /// For one exponential component of variance A, c = exp(-2 pi f_j dt) and theta = 2 pi f dt,
+    /// E[P] = 2 A dt {(1 - c^2)/d - (2 c (1 - c^L) / L) [(1 + c^2) cos theta - 2 c] / d^2} with
+    /// d = 1 + c^2 - 2 c cos theta (the expectation of the periodogram of a finite stationary
+    /// AR(1) record, derived as the double sum of its autocovariance and checked against it to
+    /// 1e-14 in shared PHYSICS.md section 2); this returns the second term summed over the
+    /// components. It is exact at the Fourier frequencies, where subtracting a segment's mean
+    /// changes nothing. With frequency-dependent drag the autocovariance is not a sum of
+    /// exponentials; the term of the plain Lorentzian with the same fc and D stands for it
+    /// (an approximation: the leakage comes from the slow, Lorentzian-like part).
+    pub(crate) fn leakage_params(&self, f_hz: f64, p: &Params, segment_len: usize) -> f64 {
+        let components = self
+            .exponential_components(p)
+            .unwrap_or([(p.fc, p.d / (2.0 * PI * p.fc)), (p.fc, 0.0)]);
+        let dt = 1.0 / self.sample_rate_hz;
+        let l = segment_len as f64;
+        let cos_theta = (2.0 * PI * f_hz * dt).cos();
+        components
+            .iter()
+            .filter(|(_, variance)| *variance != 0.0)
+            .map(|&(f_j, variance)| {
+                let c = (-2.0 * PI * f_j * dt).exp();
+                let d = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
+                let c_l = c.powf(l);
+                let bracket = c.mul_add(c, 1.0).mul_add(cos_theta, -2.0 * c);
+                -2.0 * variance * dt * (2.0 * c * (1.0 - c_l) / l) * bracket / (d * d)
+            })
+            .sum()
+    }
+
     /// Expected one-sided PSD at `f_hz` for parameters `theta`.
     pub fn one_sided_psd(&self, f_hz: f64, theta: &[f64]) -> f64 {
         self.psd_params(f_hz, &self.decode(theta))
     }
 
-    /// Mean of the model over the frequency interval [lower, upper], by 3-point Gauss-Legendre
-    /// quadrature (exact for cubics), which stands for the mean over the discrete bins of a block.
-    pub(crate) fn block_mean(&self, lower_hz: f64, upper_hz: f64, p: &Params) -> f64 {
+    /// The expected periodogram at `f_hz`: the model spectrum plus, for segments of
+    /// `segment_len` samples, their leakage term (`leakage_params`).
+    pub(crate) fn expected_periodogram(
+        &self,
+        f_hz: f64,
+        p: &Params,
+        segment_len: Option<usize>,
+    ) -> f64 {
+        let s = self.psd_params(f_hz, p);
+        match segment_len {
+            Some(l) if self.aliasing => s + self.leakage_params(f_hz, p, l),
+            _ => s,
+        }
+    }
+
+    /// Mean of the expected periodogram over the frequency interval [lower, upper], by 3-point
+    /// Gauss-Legendre quadrature (exact for cubics), which stands for the mean over the discrete
+    /// bins of a block.
+    pub(crate) fn block_mean(
+        &self,
+        lower_hz: f64,
+        upper_hz: f64,
+        p: &Params,
+        segment_len: Option<usize>,
+    ) -> f64 {
         let mid = 0.5 * (lower_hz + upper_hz);
         let half = 0.5 * (upper_hz - lower_hz);
         let node = half * (3.0f64 / 5.0).sqrt();
         let w_outer = 5.0 / 18.0;
         let w_mid = 8.0 / 18.0;
-        w_outer * (self.psd_params(mid - node, p) + self.psd_params(mid + node, p))
-            + w_mid * self.psd_params(mid, p)
+        let at = |f| self.expected_periodogram(f, p, segment_len);
+        w_outer * (at(mid - node) + at(mid + node)) + w_mid * at(mid)
     }
 }
