@@ -250,7 +250,7 @@ fn clean_recordings_lose_a_method_from_the_consensus_in_under_one_percent_of_rec
     // Exact plain OU records (the model every method assumes): a method is left out only
     // when its own goodness of fit has p < 0.001, so about 0.1 % of records per fit if the
     // p-values are exact. The bar is a false-exclusion rate of at most 1 %. Measured
-    // with this seed: 7 of 3000 records (0.23 %; psd 3, acf 5). Even a true rate of 0.5 %
+    // with this seed: 9 of 3000 records (0.3 %; psd 4, acf 5). Even a true rate of 0.5 %
     // would give 15 +- 3.9 exclusions, so the bound of 30 (1 %) fails a sound guard about once
     // in 10^4 runs.
     let (fc, d) = truth();

@@ -73,23 +73,25 @@ pub(crate) fn spectral_stage(
         axis: name.to_string(),
         n_samples: samples.len(),
     };
-    let raw_periodogram =
+    let plain =
         spectrum::periodogram(samples, model.sample_rate_hz, n_windows).ok_or_else(too_short)?;
     let mut fit_options = SpectrumFitOptions::new(model);
     fit_options.range = options.fit_range;
     // Peaks below the fit range are drift, which has its own finding.
-    let f_min_hz = fit_options.resolved_range(&raw_periodogram).0;
-    let peaks: Vec<NarrowPeak> = spectrum::find_narrow_peaks(&raw_periodogram, 0.01)
+    let (f_min_hz, f_max_hz) = fit_options.resolved_range(&plain);
+    let peaks: Vec<NarrowPeak> = spectrum::find_narrow_peaks(&plain, 0.01)
         .into_iter()
         .filter(|p| p.frequency_hz >= f_min_hz)
         .collect();
-    let lines = remove_lines(samples, model.sample_rate_hz, &peaks, &raw_periodogram);
-    let periodogram = match &lines.cleaned {
-        Some(cleaned) => {
-            spectrum::periodogram(cleaned, model.sample_rate_hz, n_windows).ok_or_else(too_short)?
-        }
-        None => raw_periodogram,
-    };
+    let lines = remove_lines(samples, model.sample_rate_hz, &peaks, &plain);
+    let switch_hz = switch_frequency_hz(&plain, f_min_hz, f_max_hz);
+    let periodogram = spectrum::switched_periodogram(
+        lines.cleaned.as_deref().unwrap_or(samples),
+        model.sample_rate_hz,
+        n_windows,
+        switch_hz,
+    )
+    .ok_or_else(too_short)?;
     if options.exclude_peaks {
         fit_options.excluded_bins = excluded_bins(&peaks, periodogram.psd.len());
     }
@@ -106,6 +108,20 @@ pub(crate) fn spectral_stage(
         model,
         fit,
     })
+}
+
+/// Where the fitted periodogram turns from plain segments to recoloured differences (see
+/// `spectrum::switched_periodogram`): near the corner frequency, estimated by the analytic
+/// weighted least-squares fit of a plain Lorentzian to the plain periodogram (Berg-Sorensen &
+/// Flyvbjerg 2004), kept at or above the fit range's lower end so that the bins below it, which
+/// the drift check reads, stay plain.
+fn switch_frequency_hz(plain: &Periodogram, f_min_hz: f64, f_max_hz: f64) -> f64 {
+    let blocks = spectrum::block_periodogram(plain, f_min_hz, f_max_hz, &[], 32, 120);
+    let fc = spectrum::plain_lorentzian_wls(&blocks)
+        .map(|f| f.corner_frequency_hz)
+        .filter(|fc| fc.is_finite() && *fc > 0.0)
+        .unwrap_or(plain.sample_rate_hz / 10.0);
+    fc.clamp(f_min_hz, plain.sample_rate_hz / 4.0)
 }
 
 /// Bins of the narrow peaks, widened by one bin on each side, to leave out of the fit.

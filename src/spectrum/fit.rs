@@ -1,7 +1,7 @@
 //! Maximum-likelihood fit of a spectrum model to a blocked periodogram, and the analytic
 //! weighted least-squares fit of a plain Lorentzian used for starting values.
 
-use super::model::{FilterSetting, Params, SpectrumModel};
+use super::model::{FilterSetting, Params, Segments, SpectrumModel};
 use super::{Block, Periodogram, block_periodogram};
 use crate::linalg::{invert_spd, solve_spd};
 use argmin::core::{CostFunction, Executor};
@@ -212,8 +212,8 @@ pub enum SpectrumFitError {
 struct Whittle<'a> {
     model: &'a SpectrumModel,
     blocks: &'a [Block],
-    /// Samples per periodogram segment, for the leakage term of the expected periodogram.
-    segment_len: Option<usize>,
+    /// The periodogram's segments, for the leakage term of the expected periodogram.
+    segment_len: Option<Segments>,
 }
 
 impl Whittle<'_> {
@@ -336,7 +336,12 @@ pub fn fit_spectrum(
     let whittle = Whittle {
         model,
         blocks: &blocks,
-        segment_len: Some(periodogram.segment_len),
+        segment_len: Some(Segments {
+            len: periodogram.segment_len,
+            // Halfway between the last plain bin and the first differenced one.
+            differenced_from_hz: (periodogram.first_differenced_bin as f64 - 0.5)
+                * periodogram.resolution_hz(),
+        }),
     };
     let mut theta = model.initial_theta(fc0, d0);
     let (mut theta_opt, mut iterations, converged) = fisher_scoring(&whittle, theta.clone(), 200);

@@ -42,6 +42,10 @@ pub struct Periodogram {
     pub n_windows: usize,
     /// One-sided PSD for bins k = 0..=L/2, signal-units^2/Hz.
     pub psd: Vec<f64>,
+    /// Bins from this one up hold recoloured first differences (`switched_periodogram`), the
+    /// ones below plain segments; the finite-segment term of the expectation differs. Equal to
+    /// `psd.len()` for a plain periodogram.
+    pub first_differenced_bin: usize,
 }
 
 impl Periodogram {
@@ -80,9 +84,10 @@ pub fn fast_length_at_most(n: usize) -> usize {
 ///
 /// The segment length is the largest fast FFT length not above `samples.len() / n_windows`;
 /// the mean of the whole record is removed first (it only affects the DC bin, but keeps the
-/// arithmetic accurate for detector signals with a large offset). No taper is applied: the
-/// fitted model is the exact expectation of the untapered periodogram, and a taper would
-/// correlate neighbouring bins. Returns `None` when a segment would be shorter than 16 samples.
+/// arithmetic accurate for detector signals with a large offset). No taper is applied: a
+/// taper would correlate neighbouring bins. Returns `None` when a segment would be shorter
+/// than 16 samples. The calibration fits `switched_periodogram` instead, whose leakage is
+/// far smaller for the steep spectra of trapped beads.
 pub fn periodogram(samples: &[f64], sample_rate_hz: f64, n_windows: usize) -> Option<Periodogram> {
     let n_windows = n_windows.max(1);
     let segment_len = fast_length_at_most(samples.len() / n_windows);
@@ -90,16 +95,99 @@ pub fn periodogram(samples: &[f64], sample_rate_hz: f64, n_windows: usize) -> Op
         return None;
     }
     let mean = samples.iter().sum::<f64>() / samples.len() as f64;
+    let psd = averaged_power(sample_rate_hz, segment_len, n_windows, |w, input| {
+        let segment = &samples[w * segment_len..(w + 1) * segment_len];
+        for (dst, &src) in input.iter_mut().zip(segment) {
+            *dst = src - mean;
+        }
+    })?;
+    Some(Periodogram {
+        sample_rate_hz,
+        segment_len,
+        n_windows,
+        first_differenced_bin: psd.len(),
+        psd,
+    })
+}
+
+/// One-sided periodogram averaged over `n_windows` non-overlapping, untapered segments: of the
+/// samples below `switch_hz`, and from there up of the record's first differences,
+/// recoloured (each ordinate divided by the differencing filter's exact gain 4 sin^2(pi k / L),
+/// so its expectation is the samples' own spectrum).
+///
+/// Why: an untapered segment leaks through the jump between its two ends, coherently across
+/// bins. For the samples of a trapped bead that leaked part is a fixed fraction res / (2 pi fc)
+/// of the Lorentzian above fc, which matters where a photodiode filter makes the true spectrum
+/// small: there the fit's standard errors came out several times too small. For first
+/// differences, the classical prewhitening against leakage (D. B. Percival & A. T. Walden,
+/// Spectral Analysis for Physical Applications (1993), chapter 6, recalled from memory,
+/// unverified), the leaked fraction is about fc res / (2 pi f^2): large at low frequencies,
+/// negligible above fc. So each frequency takes the estimate with the smaller leakage, the two
+/// being about equal near fc (derived here from the finite-segment terms of
+/// `SpectrumModel::leakage_params`, which the fit includes for both kinds of bin). Differencing
+/// is a linear filter on the sampled sequence, so its gain is exact; no taper is applied, so a
+/// sinusoid on the Fourier grid stays in its bin and the ordinates stay exponential with the
+/// model as their mean.
+///
+/// Segment w holds samples w L ..= w L + L (their L differences, or the first L samples less
+/// the record's mean), so the segments tile the record without overlap; L is the largest fast
+/// FFT length not above `(samples.len() - 1) / n_windows`. Returns `None` when a segment would
+/// be shorter than 16 samples.
+pub fn switched_periodogram(
+    samples: &[f64],
+    sample_rate_hz: f64,
+    n_windows: usize,
+    switch_hz: f64,
+) -> Option<Periodogram> {
+    let n_windows = n_windows.max(1);
+    let segment_len = fast_length_at_most(samples.len().saturating_sub(1) / n_windows);
+    if segment_len < 16 {
+        return None;
+    }
+    let mean = samples.iter().sum::<f64>() / samples.len() as f64;
+    let mut psd = averaged_power(sample_rate_hz, segment_len, n_windows, |w, input| {
+        let segment = &samples[w * segment_len..(w + 1) * segment_len];
+        for (dst, &src) in input.iter_mut().zip(segment) {
+            *dst = src - mean;
+        }
+    })?;
+    let differenced = averaged_power(sample_rate_hz, segment_len, n_windows, |w, input| {
+        let segment = &samples[w * segment_len..=(w + 1) * segment_len];
+        for (dst, pair) in input.iter_mut().zip(segment.windows(2)) {
+            *dst = pair[1] - pair[0];
+        }
+    })?;
+    let resolution_hz = sample_rate_hz / segment_len as f64;
+    let first = ((switch_hz / resolution_hz).ceil().max(1.0) as usize).min(psd.len());
+    for (k, (p, dp)) in psd.iter_mut().zip(&differenced).enumerate().skip(first) {
+        let half_angle = (std::f64::consts::PI * k as f64 / segment_len as f64).sin();
+        *p = dp / (4.0 * half_angle * half_angle);
+    }
+    Some(Periodogram {
+        sample_rate_hz,
+        segment_len,
+        n_windows,
+        psd,
+        first_differenced_bin: first,
+    })
+}
+
+/// The one-sided averaged power 2 dt |X_k|^2 / (L n) of the segments `fill` writes (DC and
+/// Nyquist not doubled), k = 0..=L/2.
+fn averaged_power(
+    sample_rate_hz: f64,
+    segment_len: usize,
+    n_windows: usize,
+    mut fill: impl FnMut(usize, &mut [f64]),
+) -> Option<Vec<f64>> {
     let fft = crate::fft::forward(segment_len);
     let mut input = fft.make_input_vec();
     let mut output = fft.make_output_vec();
     let mut scratch = fft.make_scratch_vec();
     let n_bins = segment_len / 2 + 1;
     let mut psd = vec![0.0; n_bins];
-    for window in samples.chunks_exact(segment_len).take(n_windows) {
-        for (dst, &src) in input.iter_mut().zip(window) {
-            *dst = src - mean;
-        }
+    for w in 0..n_windows {
+        fill(w, &mut input);
         // The lengths come from the plan itself, so the transform cannot fail.
         if fft
             .process_with_scratch(&mut input, &mut output, &mut scratch)
@@ -117,12 +205,7 @@ pub fn periodogram(samples: &[f64], sample_rate_hz: f64, n_windows: usize) -> Op
         let edge = k == 0 || (segment_len % 2 == 0 && k == n_bins - 1);
         *p *= if edge { scale / 2.0 } else { scale };
     }
-    Some(Periodogram {
-        sample_rate_hz,
-        segment_len,
-        n_windows,
-        psd,
-    })
+    Some(psd)
 }
 
 /// A block of neighbouring periodogram bins, averaged (Berg-Sorensen & Flyvbjerg 2004, sec. IV:

@@ -98,6 +98,15 @@ fn hydro_spectrum(f_hz: f64, fc: f64, d: f64, hydro: &HydroTerms) -> f64 {
     d / (PI * PI) * (1.0 + s) / re.mul_add(re, im * im)
 }
 
+/// The periodogram's segments, for the finite-segment term of its expectation.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(crate) struct Segments {
+    /// Samples (or differences) per segment.
+    pub(crate) len: usize,
+    /// From this frequency (Hz) up the ordinates are of recoloured first differences.
+    pub(crate) differenced_from_hz: f64,
+}
+
 /// Decoded model parameters.
 #[derive(Clone, Copy, Debug)]
 pub(crate) struct Params {
@@ -225,24 +234,40 @@ impl SpectrumModel {
     }
 
     /// The finite-segment (leakage) term of the expected periodogram of untapered segments of
-    /// `segment_len` samples, one-sided, signal-unit^2/Hz.
+    /// `segment_len` samples, one-sided, signal-unit^2/Hz: of the samples themselves, or of
+    /// their first differences recoloured (`differenced`, see `spectrum::difference_periodogram`).
     ///
-    /// For one exponential component of variance A, c = exp(-2 pi f_j dt) and theta = 2 pi f dt,
-    /// E[P] = 2 A dt {(1 - c^2)/d - (2 c (1 - c^L) / L) [(1 + c^2) cos theta - 2 c] / d^2} with
-    /// d = 1 + c^2 - 2 c cos theta (the expectation of the periodogram of a finite stationary
-    /// AR(1) record, derived as the double sum of its autocovariance and checked against it to
-    /// 1e-14 in shared PHYSICS.md section 2); this returns the second term summed over the
-    /// components. It is exact at the Fourier frequencies, where subtracting a segment's mean
-    /// changes nothing. With frequency-dependent drag the autocovariance is not a sum of
-    /// exponentials; the term of the plain Lorentzian with the same fc and D stands for it
-    /// (an approximation: the leakage comes from the slow, Lorentzian-like part).
-    pub(crate) fn leakage_params(&self, f_hz: f64, p: &Params, segment_len: usize) -> f64 {
+    /// For one exponential component of variance A, c = exp(-2 pi f_j dt), theta = 2 pi f dt and
+    /// d = 1 + c^2 - 2 c cos theta, the samples' expected periodogram is
+    /// 2 A dt {(1 - c^2)/d - (2 c (1 - c^L) / L) [(1 + c^2) cos theta - 2 c] / d^2}
+    /// (the double sum of the AR(1) autocovariance, checked against it to 1e-14 in shared
+    /// PHYSICS.md section 2), whose second term is returned. The differences y_j = x_{j+1} - x_j
+    /// have C_y(0) = 2 A (1 - c) and C_y(m) = -A (1 - c)^2 c^(m-1) for m >= 1; with the same
+    /// geometric sums their finite-record term is
+    /// 2 dt A (1 - c)^2 (2 (1 - c^L) / L) [(1 + c^2) cos theta - 2 c] / d^2 (derived here),
+    /// divided by the recolouring gain 4 sin^2(theta / 2): the (1 - c)^2 is why differencing
+    /// tames the leakage of steep spectra. Both are exact at the Fourier frequencies for sums of
+    /// exponentials (the tests check them against the double sums); with frequency-dependent
+    /// drag the plain Lorentzian of the same fc and D stands in (an approximation: the term
+    /// comes from the slow, Lorentzian-like part of the motion).
+    pub(crate) fn leakage_params(
+        &self,
+        f_hz: f64,
+        p: &Params,
+        segment_len: usize,
+        differenced: bool,
+    ) -> f64 {
         let components = self
             .exponential_components(p)
             .unwrap_or([(p.fc, p.d / (2.0 * PI * p.fc)), (p.fc, 0.0)]);
         let dt = 1.0 / self.sample_rate_hz;
         let l = segment_len as f64;
-        let cos_theta = (2.0 * PI * f_hz * dt).cos();
+        let theta = 2.0 * PI * f_hz * dt;
+        let cos_theta = theta.cos();
+        let gain = 2.0 * (1.0 - cos_theta);
+        if differenced && !(gain > 0.0) {
+            return 0.0;
+        }
         components
             .iter()
             .filter(|(_, variance)| *variance != 0.0)
@@ -251,7 +276,13 @@ impl SpectrumModel {
                 let d = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
                 let c_l = c.powf(l);
                 let bracket = c.mul_add(c, 1.0).mul_add(cos_theta, -2.0 * c);
-                -2.0 * variance * dt * (2.0 * c * (1.0 - c_l) / l) * bracket / (d * d)
+                let edge = 2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * variance * dt;
+                if differenced {
+                    let one_minus_c = 1.0 - c;
+                    edge * one_minus_c * one_minus_c / gain
+                } else {
+                    -edge * c
+                }
             })
             .sum()
     }
@@ -267,11 +298,13 @@ impl SpectrumModel {
         &self,
         f_hz: f64,
         p: &Params,
-        segment_len: Option<usize>,
+        segments: Option<Segments>,
     ) -> f64 {
         let s = self.psd_params(f_hz, p);
-        match segment_len {
-            Some(l) if self.aliasing => s + self.leakage_params(f_hz, p, l),
+        match segments {
+            Some(seg) if self.aliasing => {
+                s + self.leakage_params(f_hz, p, seg.len, f_hz >= seg.differenced_from_hz)
+            }
             _ => s,
         }
     }
@@ -284,14 +317,14 @@ impl SpectrumModel {
         lower_hz: f64,
         upper_hz: f64,
         p: &Params,
-        segment_len: Option<usize>,
+        segments: Option<Segments>,
     ) -> f64 {
         let mid = 0.5 * (lower_hz + upper_hz);
         let half = 0.5 * (upper_hz - lower_hz);
         let node = half * (3.0f64 / 5.0).sqrt();
         let w_outer = 5.0 / 18.0;
         let w_mid = 8.0 / 18.0;
-        let at = |f| self.expected_periodogram(f, p, segment_len);
+        let at = |f| self.expected_periodogram(f, p, segments);
         w_outer * (at(mid - node) + at(mid + node)) + w_mid * at(mid)
     }
 }

@@ -213,6 +213,7 @@ fn blocks_cover_the_range_and_respect_the_minimum_size() {
         segment_len: 2_000,
         n_windows: 3,
         psd: (0..=1_000).map(|k| k as f64).collect(),
+        first_differenced_bin: usize::MAX,
     };
     let excluded = [100usize, 101];
     let blocks = block_periodogram(&pg, 10.0, 400.0, &excluded, 16, 30);
@@ -360,6 +361,7 @@ fn fitted_detector_filter_is_recovered() {
         segment_len,
         n_windows: 1,
         psd,
+        first_differenced_bin: usize::MAX,
     };
     let fit_model = SpectrumModel {
         filter: FilterSetting::Fitted(DetectorFilter {
@@ -845,6 +847,7 @@ fn hydrodynamic_model_removes_the_bias_a_lorentzian_fit_suffers() {
         segment_len,
         n_windows: 1,
         psd,
+        first_differenced_bin: usize::MAX,
     };
     let mut with = SpectrumFitOptions::new(truth);
     with.range.f_max_hz = Some(20_000.0);
@@ -898,11 +901,12 @@ fn filtered_spectrum_in_closed_form_equals_the_direct_alias_sum() {
     }
 }
 
-/// The leakage term makes the model the exact expectation of a finite segment's periodogram:
-/// E[P_k] = 2 dt sum_{|m| < L} (1 - |m|/L) C(m dt) cos(2 pi k m / L), the double sum of the
-/// autocovariance (Wiener-Khinchin for a finite record; an exact identity), with C the plain
-/// exponential or the filtered two-exponential autocovariance written out here from its
-/// partial fractions (shared PHYSICS.md section 12 form).
+/// The leakage term makes the model the exact expectation of a finite segment's periodogram,
+/// plain or of recoloured first differences: E[P_k] = 2 dt sum_{|m| < L} (1 - |m|/L) C(m dt)
+/// cos(2 pi k m / L), with, for differences, C_y(m) = 2 C(m) - C(m + 1) - C(m - 1) in place of
+/// C and the result divided by 4 sin^2(pi k / L) (the double sum of the autocovariance, an
+/// exact identity), with C the plain exponential or the filtered two-exponential
+/// autocovariance written out here from its partial fractions (shared PHYSICS.md section 12).
 #[test]
 fn expected_periodogram_of_short_segments_equals_the_autocovariance_double_sum() {
     let fs = 100_000.0;
@@ -916,7 +920,7 @@ fn expected_periodogram_of_short_segments_equals_the_autocovariance_double_sum()
             alpha: 0.2,
         }),
     ];
-    for filter in cases {
+    for (filter, differenced) in cases.iter().flat_map(|f| [(*f, false), (*f, true)]) {
         let model = SpectrumModel {
             sample_rate_hz: fs,
             aliasing: true,
@@ -924,8 +928,9 @@ fn expected_periodogram_of_short_segments_equals_the_autocovariance_double_sum()
             hydro: None,
         };
         let p = model.decode(&[fc.ln(), d.ln()]);
-        let acov = |t: f64| {
-            let lorentz = |f: f64| d / (2.0 * PI * f) * (-2.0 * PI * f * t.abs()).exp();
+        let acov = |m: i64| {
+            let t = m.unsigned_abs() as f64 * dt;
+            let lorentz = |f: f64| d / (2.0 * PI * f) * (-2.0 * PI * f * t).exp();
             match filter {
                 None => lorentz(fc),
                 Some(g) => {
@@ -935,16 +940,34 @@ fn expected_periodogram_of_short_segments_equals_the_autocovariance_double_sum()
                 }
             }
         };
+        let seen = |m: i64| {
+            if differenced {
+                2.0 * acov(m) - acov(m + 1) - acov(m - 1)
+            } else {
+                acov(m)
+            }
+        };
         for k in [1usize, 3, 10, 40, 127] {
             let f = k as f64 * fs / l as f64;
-            let mut direct = acov(0.0);
-            for m in 1..l {
+            let mut direct = seen(0);
+            for m in 1..l as i64 {
                 let w = 1.0 - m as f64 / l as f64;
-                direct +=
-                    2.0 * w * acov(m as f64 * dt) * (2.0 * PI * (k * m) as f64 / l as f64).cos();
+                direct += 2.0 * w * seen(m) * (2.0 * PI * (k as i64 * m) as f64 / l as f64).cos();
             }
             direct *= 2.0 * dt;
-            check_close(model.expected_periodogram(f, &p, Some(l)), direct, 1e-9);
+            if differenced {
+                let half = (PI * k as f64 / l as f64).sin();
+                direct /= 4.0 * half * half;
+            }
+            let segments = model::Segments {
+                len: l,
+                differenced_from_hz: if differenced { 0.0 } else { f64::INFINITY },
+            };
+            check_close(
+                model.expected_periodogram(f, &p, Some(segments)),
+                direct,
+                1e-9,
+            );
         }
     }
 }
