@@ -408,7 +408,7 @@ pub const SPECS: &[SettingSpec] = &[
         label: "Viscosity",
         kind: Kind::Number(Range::Positive),
         unit: "mPa·s",
-        help: "Viscosity of the medium, when it is not plain water.",
+        help: "Give it when the medium is not plain water.",
         absent: Absent::Means("water at the given temperature (IAPWS 2008)"),
         example: "1.2",
         flag: Flag::Value {
@@ -490,7 +490,7 @@ pub const SPECS: &[SettingSpec] = &[
         label: "File format",
         kind: Kind::Choice(&FORMAT_CHOICES),
         unit: "",
-        help: "File format, instead of telling it from the file name and the first bytes.",
+        help: "Read the file as this format instead of telling it from its name and first bytes.",
         absent: Absent::Means("told from the file name and the first bytes"),
         example: "raw-f32",
         flag: Flag::Value {
