@@ -5,7 +5,9 @@
 // Why this shape: the page is plain HTML, CSS and this one ES module, with no build step and
 // nothing fetched from elsewhere. It talks to the service only through the documented /api/v1
 // routes (see /api/v1/openapi.json). Plots are inline SVG drawn here by hand, so every point and
-// curve is an element the browser tests can count (data-series="data", "model", ...).
+// curve is an element the browser tests can count (data-series="data", "model", ...). The run
+// settings on the upload form are made from the service's settings table (/api/v1/settings), so
+// every setting the service takes has a control here, with the table's label, unit and help.
 //
 // Conventions: numbers arrive in the units their JSON names state (stiffness_pn_per_nm,
 // corner_frequency_hz, relaxation_time_s, lag_s); the page shows them in the same units except
@@ -17,15 +19,15 @@ const FIELDS_KEY = "trapwise.page.fields/1";
 const TOKEN_KEY = "trapwise.page.token/1";
 const SVG_NS = "http://www.w3.org/2000/svg";
 
-/** Form fields remembered between visits (run conditions, labels and raw-file layout). */
-const REMEMBERED = [
-  "instrument", "trap", "bead_diameter_um", "temperature_c", "sample_rate_hz", "height_um",
-  "units", "format", "channels", "volts_per_count", "axes",
-];
-/** Form fields sent with an upload, in this order, before the file. */
-const SENT = [...REMEMBERED, "note"];
-/** Problem `field` values that have their own input on the form. */
-const FORM_FIELDS = new Set([...SENT, "file"]);
+/** Label fields remembered between visits (the run settings are remembered too). */
+const REMEMBERED_LABELS = ["instrument", "trap", "axes"];
+/** Label fields sent with an upload, before the run settings and the file. */
+const SENT_LABELS = [...REMEMBERED_LABELS, "note"];
+/**
+ * The run settings as the service's settings table states them (GET /api/v1/settings):
+ * [{key, label, kind, unit, help, required, default, choices?, ...}], empty until loaded.
+ */
+let SETTINGS = [];
 /** Runs before a point that define the "recent spread" band of the history plot. */
 const SPREAD_RUNS = 5;
 
@@ -273,28 +275,138 @@ async function route() {
 // ---------------------------------------------------------------------------------------------
 // Upload
 
-function rememberFields() {
-  const values = {};
-  for (const name of REMEMBERED) values[name] = $(`f-${name}`).value;
+/** The text a control holds: a checkbox gives "true" or "", others their value. */
+function controlText(control) {
+  return control.type === "checkbox" ? (control.checked ? "true" : "") : control.value;
+}
+
+function setControlText(control, text) {
+  if (control.type === "checkbox") control.checked = text === "true";
+  else control.value = text;
+}
+
+function storedFields() {
   try {
-    localStorage.setItem(FIELDS_KEY, JSON.stringify(values));
+    const values = JSON.parse(localStorage.getItem(FIELDS_KEY) || "{}");
+    return values && typeof values === "object" ? values : {};
+  } catch (_) {
+    return {};
+  }
+}
+
+function saveToken() {
+  try {
     localStorage.setItem(TOKEN_KEY, $("f-token").value.trim());
   } catch (_) {
     // Storage may be full or disabled; remembering is a convenience only.
   }
 }
 
-function restoreFields() {
-  let values = {};
+/** Remembers the labels and every run setting on the form (others stored before are kept). */
+function rememberFields() {
+  const values = storedFields();
+  for (const name of [...REMEMBERED_LABELS, ...SETTINGS.map((s) => s.key)]) {
+    const control = $(`f-${name}`);
+    if (control) values[name] = controlText(control);
+  }
   try {
-    values = JSON.parse(localStorage.getItem(FIELDS_KEY) || "{}") || {};
+    localStorage.setItem(FIELDS_KEY, JSON.stringify(values));
   } catch (_) {
-    values = {};
+    // As above.
   }
-  for (const name of REMEMBERED) {
-    if (typeof values[name] === "string") $(`f-${name}`).value = values[name];
+  saveToken();
+}
+
+/** Puts the remembered values of `names` back into their controls. */
+function restoreFields(names) {
+  const values = storedFields();
+  for (const name of names) {
+    const control = $(`f-${name}`);
+    if (control && typeof values[name] === "string") setControlText(control, values[name]);
   }
-  $("f-token").value = token();
+}
+
+// ---------------------------------------------------------------------------------------------
+// Run-setting controls, made from the settings table
+
+/** "Bead diameter (µm)". */
+function settingLabel(spec) {
+  return spec.unit ? `${spec.label} (${spec.unit})` : spec.label;
+}
+
+/** The hint under a setting's control: what it does, and its default or that it is required. */
+function settingHint(spec) {
+  return spec.required ? `${spec.help} Required.` : `${spec.help} Default: ${spec.default}.`;
+}
+
+/**
+ * One setting's control with its label, hint and error slot: a checkbox for a boolean, a
+ * select for a choice (the empty option leaves the default), a text input otherwise. Ids are
+ * f-KEY, hint-KEY and err-KEY, as for the fixed fields, so problems find their control.
+ */
+function settingField(spec) {
+  const id = `f-${spec.key}`;
+  const describedBy = `hint-${spec.key} err-${spec.key}`;
+  const hint = el("p", { class: "hint", id: `hint-${spec.key}`, text: settingHint(spec) });
+  const error = el("p", { class: "field-error", id: `err-${spec.key}`, hidden: true });
+  if (spec.kind === "boolean") {
+    return el("div", { class: "field field-check", "data-setting": spec.key },
+      el("div", { class: "check-row" },
+        el("input", { type: "checkbox", id, name: spec.key, value: "true", "aria-describedby": describedBy }),
+        el("label", { for: id, text: settingLabel(spec) })),
+      hint, error);
+  }
+  let control;
+  if (spec.kind === "choice") {
+    control = el("select", { id, name: spec.key, "aria-describedby": describedBy },
+      el("option", { value: "", text: spec.required ? "Choose …" : `Default: ${spec.default}` }),
+      (spec.choices || []).map((c) => el("option", { value: c, text: c })));
+  } else {
+    const inputmode = { number: "decimal", count: "numeric" }[spec.kind];
+    control = el("input", {
+      id, name: spec.key, autocomplete: "off", inputmode, required: spec.required,
+      "aria-describedby": describedBy,
+    });
+  }
+  return el("div", { class: "field", "data-setting": spec.key },
+    el("label", { for: id, text: settingLabel(spec) }), control, hint, error);
+}
+
+/** Builds the controls of every setting: those named by #settings-main there, the rest below. */
+function buildSettings() {
+  const main = $("settings-main");
+  const mainKeys = (main.dataset.keys || "").split(/\s+/).filter(Boolean);
+  const more = $("settings-more");
+  fill(main, SETTINGS.filter((s) => mainKeys.includes(s.key)).map(settingField));
+  fill(more, SETTINGS.filter((s) => !mainKeys.includes(s.key)).map(settingField));
+  restoreFields(SETTINGS.map((s) => s.key));
+}
+
+/**
+ * Loads the settings table and builds the controls. On a server that wants a token this fails
+ * until one is given; the status line says so, and giving the token loads them (see start).
+ */
+async function loadSettings() {
+  const form = $("upload-form");
+  const status = $("settings-status");
+  form.dataset.settings = "loading";
+  status.hidden = false;
+  status.textContent = "Loading the run settings …";
+  try {
+    const doc = await getJson(`${API}/settings`);
+    SETTINGS = Array.isArray(doc.settings) ? doc.settings : [];
+  } catch (e) {
+    const p = e.problem || { title: String(e) };
+    const fix = e.status === 401 ? " Give the access token under “More settings and access”." : "";
+    status.textContent = `The run settings could not be loaded: ${p.title}${p.detail ? `: ${p.detail}` : ""}.${fix}`;
+    status.dataset.code = p.code || "";
+    form.dataset.settings = "error";
+    if (e.status === 401) $("more-settings").open = true;
+    return;
+  }
+  buildSettings();
+  status.hidden = true;
+  form.dataset.settings = "ready";
 }
 
 function showFileName() {
@@ -324,7 +436,7 @@ function clearErrors() {
 /** The form field a problem is about: its own field, the token, the file, or none. */
 function problemTarget(status, problem) {
   const field = typeof problem.field === "string" ? problem.field : "";
-  if (FORM_FIELDS.has(field)) return field;
+  if (field && $(`f-${field}`) && $(`err-${field}`)) return field;
   if (status === 401) return "token";
   if (field) return null;
   // Problems without a field about the body are about the recording: its sending (408
@@ -336,10 +448,14 @@ function problemTarget(status, problem) {
 
 const FIELD_NAMES = {
   file: "the recording", token: "Access token", instrument: "Instrument", trap: "Trap", note: "Note",
-  bead_diameter_um: "Bead diameter", temperature_c: "Temperature", sample_rate_hz: "Sample rate",
-  height_um: "Height", units: "Position units", format: "File format", channels: "Channels",
-  volts_per_count: "Volts per count", axes: "Axis names",
+  axes: "Axis names",
 };
+
+/** The name of a field for people: a fixed field's, or the setting's label. */
+function fieldName(name) {
+  const spec = SETTINGS.find((s) => s.key === name);
+  return FIELD_NAMES[name] || (spec ? spec.label : name);
+}
 
 function showProblem(status, problem) {
   const target = problemTarget(status, problem);
@@ -354,7 +470,7 @@ function showProblem(status, problem) {
     input.setAttribute("aria-invalid", "true");
     if (target === "file") $("dropzone").classList.add("is-invalid");
     if (input.closest("details")) input.closest("details").open = true;
-    summary.replaceChildren(`The upload was refused (${status}); see the message at ${FIELD_NAMES[target] || target}.`);
+    summary.replaceChildren(`The upload was refused (${status}); see the message at ${fieldName(target)}.`);
     summary.hidden = false;
     input.focus({ preventScroll: true });
     (target === "file" ? $("dropzone") : input).scrollIntoView({ block: "center" });
@@ -382,9 +498,18 @@ function submitUpload(event) {
   clearErrors();
   rememberFields();
   const form = new FormData();
-  for (const name of SENT) {
+  for (const name of SENT_LABELS) {
     const value = $(`f-${name}`).value.trim();
     if (value) form.append(name, value);
+  }
+  // Every setting with a control, in the table's order. An unticked box is left out when its
+  // default is false (as the service would take it anyway), and sent as false otherwise.
+  for (const spec of SETTINGS) {
+    const control = $(`f-${spec.key}`);
+    if (!control) continue;
+    let value = controlText(control).trim();
+    if (control.type === "checkbox" && !value && spec.default !== "false") value = "false";
+    if (value) form.append(spec.key, value);
   }
   const file = $("f-file").files[0];
   if (file) form.append("file", file, file.name);
@@ -1031,7 +1156,13 @@ async function showOverview() {
 // Start
 
 function start() {
-  restoreFields();
+  restoreFields(REMEMBERED_LABELS);
+  $("f-token").value = token();
+  $("f-token").addEventListener("change", () => {
+    saveToken();
+    if ($("upload-form").dataset.settings !== "ready") loadSettings();
+  });
+  loadSettings();
   setUpDropzone();
   $("upload-form").addEventListener("submit", submitUpload);
   window.addEventListener("hashchange", route);

@@ -59,10 +59,7 @@ pub(crate) fn print_report(r: &CalibrationReport, json: bool, strict: bool) -> R
 }
 
 pub(super) fn run(args: &CalibrateArgs) -> Result<u8, Failure> {
-    let settings = args
-        .run
-        .settings()
-        .map_err(|e| Failure::new(EXIT_BAD_INPUT, e))?;
+    let settings = args.run.settings();
     // Check the settings before touching the file, so a typo is reported as such.
     settings
         .resolve()
@@ -75,6 +72,6 @@ pub(super) fn run(args: &CalibrateArgs) -> Result<u8, Failure> {
         .unwrap_or_else(|| args.file.display().to_string());
     let with_plots = args.json && !args.no_plots;
     let report =
-        pipeline::run_from(&name, &mut file, size, &settings, with_plots).map_err(failure)?;
+        pipeline::run_from(&name, &mut file, size, settings, with_plots).map_err(failure)?;
     print_report(&report, args.json, args.strict)
 }

@@ -55,10 +55,7 @@ fn server_failure(e: impl std::fmt::Display) -> Failure {
 }
 
 async fn send(args: &UploadArgs) -> Result<u8, Failure> {
-    let settings = args
-        .run
-        .settings()
-        .map_err(|e| Failure::new(EXIT_BAD_INPUT, e))?;
+    let settings = args.run.settings();
     let file = tokio::fs::File::open(&args.file).await.map_err(|e| {
         Failure::new(
             EXIT_BAD_INPUT,

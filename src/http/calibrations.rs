@@ -31,7 +31,7 @@ fn not_found(id: &str) -> AppError {
 }
 
 /// Query parameters as pairs; unknown names are rejected with the name.
-fn query(raw: Option<&str>, known: &[&str]) -> Result<Vec<(String, String)>, AppError> {
+pub(super) fn query(raw: Option<&str>, known: &[&str]) -> Result<Vec<(String, String)>, AppError> {
     let uri: axum::http::Uri =
         format!("/?{}", raw.unwrap_or(""))
             .parse()

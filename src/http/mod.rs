@@ -8,7 +8,8 @@
 //! Routes (documented in the OpenAPI document at `/api/v1/openapi.json`):
 //! `POST /api/v1/calibrations`, `GET /api/v1/calibrations`, `GET /api/v1/calibrations/{id}`,
 //! `GET /api/v1/calibrations/{id}/recording`, `GET /api/v1/calibrations/{id}/plots`,
-//! `GET /api/v1/instruments/{instrument}/traps/{trap}/history`, `GET /healthz`, `GET /metrics`,
+//! `GET /api/v1/instruments`, `GET /api/v1/instruments/{instrument}/traps/{trap}/history`,
+//! `GET /api/v1/settings`, `GET /healthz`, `GET /metrics`,
 //! and the page at `/` with its `/app.js` and `/style.css` (see `page`).
 
 pub mod admission;
@@ -18,6 +19,7 @@ pub mod openapi;
 mod ops;
 mod page;
 pub mod problem;
+mod settings;
 mod upload;
 pub mod wire;
 
@@ -202,6 +204,7 @@ pub fn app(state: AppState) -> Router {
             "/instruments/{instrument}/traps/{trap}/history",
             get(calibrations::history),
         )
+        .route("/settings", get(settings::list))
         .route("/openapi.json", get(ops::openapi));
     Router::new()
         .route("/", get(page::index))

@@ -382,3 +382,7 @@ impl From<PipelineError> for AppError {
         }
     }
 }
+
+#[cfg(test)]
+#[path = "problem_tests.rs"]
+mod tests;

@@ -3,7 +3,8 @@
 //! Two request shapes carry the same vocabulary: `multipart/form-data` with a `file` part and
 //! text fields, or the raw file as the body with the fields as query parameters (for curl and
 //! scripts). Fields are the labels `instrument`, `trap` (both required), `note`, `axes`
-//! (comma-separated axis labels), `file_name`, and the run settings of `settings::KEYS`.
+//! (comma-separated axis labels), `file_name`, and exactly the run settings of the settings
+//! table (`settings::KEYS`), which go through `Settings::apply`; any other name is refused.
 //!
 //! The recording streams to a temporary file while its SHA-256 is taken, so it is never held
 //! twice in memory; the file is read back once for parsing. The idempotency key (SHA-256 of the
@@ -396,8 +397,7 @@ fn document_response(status: StatusCode, doc: &CalibrationDocument) -> Result<Re
         ("note" = Option<String>, Query, description = "Operator note"),
         ("axes" = Option<String>, Query, description = "Comma-separated axis labels"),
         ("file_name" = Option<String>, Query, description = "File name, used for format detection"),
-        ("bead_diameter_um" = Option<f64>, Query, description = "Bead diameter, um (required); every key of the run settings is accepted the same way"),
-        ("temperature_c" = Option<f64>, Query, description = "Temperature, degrees Celsius (required)"),
+        // The run settings follow, one per row of the settings table (`openapi::SettingParameters`).
     ),
     request_body(
         description = "multipart/form-data with a `file` part and the same fields as text parts, or the raw recording as the body",
@@ -598,3 +598,7 @@ pub(crate) async fn create(
     };
     document_response(status, &CalibrationDocument::from_stored(&stored)?)
 }
+
+#[cfg(test)]
+#[path = "upload_tests.rs"]
+mod tests;

@@ -4,9 +4,11 @@
 //! A calibration document is `{id, created_at_ms, instrument, trap, note, axes_labels, links,
 //! result}` where `result` is the engine's report (schema `trapwise.calibration/1`) without
 //! plot arrays, byte-for-byte the numbers `trapwise calibrate --json --no-plots` prints.
+//! The settings document is the settings table (`settings::SPECS`) as JSON.
 
 use super::problem::AppError;
 use crate::report::{AcfPlot, CalibrationReport, HistogramPlot, SpectrumPlot, ValueSe};
+use crate::settings::{Flag, Kind, SettingSpec};
 use crate::store::StoredCalibration;
 use serde::{Deserialize, Serialize};
 use utoipa::ToSchema;
@@ -153,6 +155,80 @@ pub struct Health {
     pub status: String,
     /// `sqlite` or `postgres`.
     pub database: String,
+}
+
+/// One run setting, as the settings table (`settings::SPECS`) states it.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct SettingEntry {
+    /// The form field and query parameter of an upload (`bead_diameter_um`).
+    pub key: String,
+    /// A short name for people.
+    pub label: String,
+    /// What the text must be: `number`, `count` (positive whole number), `boolean`
+    /// (true/false), `choice` (one of `choices`), `filter` (none, fit, fit:F3DB:ALPHA or
+    /// F3DB:ALPHA) or `names` (comma-separated).
+    pub kind: String,
+    /// The unit of a number (`µm`); empty when there is none.
+    pub unit: String,
+    /// What the setting does.
+    pub help: String,
+    /// Whether an upload must give it.
+    pub required: bool,
+    /// What applies when it is not given (a value or a behaviour in words); null when required.
+    pub default: Option<String>,
+    /// The canonical names of a choice (other spellings of them are accepted too).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub choices: Option<Vec<String>>,
+    /// The plausible range of a number in words (`positive`, `zero or positive`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub range: Option<String>,
+    /// A valid value, other than the default.
+    pub example: String,
+    /// The command-line flag of `calibrate` and `upload` (`--bead-diameter UM`, or a bare
+    /// switch such as `--linear-detrend`).
+    pub flag: String,
+}
+
+/// Every run setting an upload takes, in the order they are listed to people.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct SettingsDocument {
+    pub settings: Vec<SettingEntry>,
+}
+
+impl From<&SettingSpec> for SettingEntry {
+    fn from(spec: &SettingSpec) -> Self {
+        let range = match spec.kind {
+            Kind::Number(range) => range.describe(),
+            _ => None,
+        };
+        SettingEntry {
+            key: spec.key.into(),
+            label: spec.label.into(),
+            kind: spec.kind.name().into(),
+            unit: spec.unit.into(),
+            help: spec.help.into(),
+            required: spec.required(),
+            default: spec.default_text().map(Into::into),
+            choices: spec
+                .choices()
+                .map(|c| c.iter().map(|n| (*n).to_string()).collect()),
+            range,
+            example: spec.example.into(),
+            flag: match spec.flag {
+                Flag::Value { long, value_name } => format!("--{long} {value_name}"),
+                Flag::Switch { long, .. } => format!("--{long}"),
+            },
+        }
+    }
+}
+
+impl SettingsDocument {
+    /// The document of a settings table.
+    pub fn from_table(specs: &[SettingSpec]) -> Self {
+        SettingsDocument {
+            settings: specs.iter().map(SettingEntry::from).collect(),
+        }
+    }
 }
 
 /// Percent-encodes one path segment (RFC 3986 section 2: unreserved characters stay).

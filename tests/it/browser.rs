@@ -214,8 +214,21 @@ impl Browser {
         }
     }
 
-    /// Types `value` into the control named `name` (a select takes the option's value).
+    /// Waits until the page has made its run-setting controls from the settings table.
+    async fn wait_settings(&self) {
+        self.wait_for(
+            "the run-setting controls",
+            "return document.getElementById('upload-form').dataset.settings === 'ready';",
+        )
+        .await;
+    }
+
+    /// Types `value` into the control named `name` (a select takes the option's value, a
+    /// checkbox is ticked for `true` and cleared otherwise), once the page has made it.
     async fn set_field(&self, name: &str, value: &str) {
+        if !matches!(name, "instrument" | "trap" | "note" | "axes" | "token") {
+            self.wait_settings().await;
+        }
         let control = self
             .client
             .find(Locator::Id(&format!("f-{name}")))
@@ -223,6 +236,12 @@ impl Browser {
             .unwrap_or_else(|e| panic!("no control f-{name}: {e}"));
         if control.tag_name().await.expect("tag name") == "select" {
             control.select_by_value(value).await.expect("select");
+        } else if control.attr("type").await.expect("type").as_deref() == Some("checkbox") {
+            let checked =
+                control.prop("checked").await.expect("checked").as_deref() == Some("true");
+            if checked != (value == "true") {
+                control.click().await.expect("tick");
+            }
         } else {
             control.clear().await.expect("clear");
             if !value.is_empty() {
@@ -231,7 +250,7 @@ impl Browser {
         }
     }
 
-    /// Opens the "raw files and access" panel, whose fields are hidden until then.
+    /// Opens the "more settings and access" panel, whose fields are hidden until then.
     async fn open_more_settings(&self) {
         let open = self
             .js(
@@ -729,7 +748,9 @@ async fn upload_view_shows_the_laser_caution_without_scrolling_and_labels_every_
         }
         browser.screenshot(name, false).await;
     }
-    // Every control has a real label, and the file input is reached from the keyboard.
+    // Every control, the ones made from the settings table included, has a real label, and
+    // the file input is reached from the keyboard.
+    browser.wait_settings().await;
     let unlabelled = browser
         .js(
             "return [...document.querySelectorAll('#upload-form input, #upload-form select')]
@@ -1018,6 +1039,7 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     // 3. The fields remember their last values across a reload.
     browser.goto(&server.url("/#/")).await;
     browser.client.refresh().await.expect("reload");
+    browser.wait_settings().await;
     let remembered = browser
         .js(
             "return ['instrument','trap','bead_diameter_um','temperature_c','sample_rate_hz',
@@ -1337,4 +1359,205 @@ async fn history_and_overview_show_every_run_of_each_trap_and_open_their_results
     assert_eq!(hash, json!(format!("#/calibrations/{first}")));
     browser.close().await;
     server.stop().await;
+}
+
+/// Every run-setting control, read in one script: control, label, choices, hint, visibility.
+const READ_SETTING_CONTROLS: &str = "
+const out = {};
+for (const f of document.querySelectorAll('#upload-form [data-setting]')) {
+  const key = f.dataset.setting;
+  const c = document.getElementById('f-' + key);
+  out[key] = {
+    tag: c.tagName.toLowerCase(),
+    type: c.type,
+    label: c.labels.length ? c.labels[0].textContent : '',
+    options: c.tagName === 'SELECT' ? [...c.options].map((o) => o.value) : null,
+    hint: document.getElementById('hint-' + key).textContent,
+    visible: c.getClientRects().length > 0,
+    required: c.required,
+  };
+}
+return out;
+";
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn every_setting_of_the_table_has_a_control_and_reaches_the_stored_calibration() {
+    let _turn = ONE_BROWSER.lock().await;
+    let (_db, server) = sqlite_server().await;
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let table = api_json(&server, "/api/v1/settings").await;
+    let specs = table["settings"].as_array().cloned().unwrap_or_default();
+    assert_eq!(specs.len(), trapwise::settings::SPECS.len());
+
+    let mut browser = Browser::start().await;
+    browser.goto(&server.url("/")).await;
+    browser.wait_settings().await;
+    browser.open_more_settings().await;
+    let shown = browser.js(READ_SETTING_CONTROLS, vec![]).await;
+    assert_eq!(
+        shown.as_object().map_or(0, serde_json::Map::len),
+        specs.len(),
+        "one control per setting: {shown}"
+    );
+    for spec in &specs {
+        let key = spec["key"].as_str().unwrap_or("");
+        let c = &shown[key];
+        assert!(c.is_object(), "{key}: no control on the page");
+        let (tag, kind) = (c["tag"].as_str().unwrap_or(""), spec["kind"].as_str());
+        match kind {
+            Some("boolean") => {
+                assert_eq!((tag, &c["type"]), ("input", &json!("checkbox")), "{key}")
+            }
+            Some("choice") => {
+                assert_eq!(tag, "select", "{key}");
+                let mut options = vec![json!("")];
+                options.extend(spec["choices"].as_array().cloned().unwrap_or_default());
+                assert_eq!(c["options"], Value::Array(options), "{key}: options");
+            }
+            _ => assert_eq!((tag, &c["type"]), ("input", &json!("text")), "{key}"),
+        }
+        let unit = spec["unit"].as_str().unwrap_or("");
+        let label = spec["label"].as_str().unwrap_or("");
+        let expected_label = if unit.is_empty() {
+            label.to_string()
+        } else {
+            format!("{label} ({unit})")
+        };
+        assert_eq!(c["label"], json!(expected_label), "{key}: label");
+        let hint = c["hint"].as_str().unwrap_or("");
+        assert!(
+            hint.contains(spec["help"].as_str().unwrap_or("-")),
+            "{key}: hint `{hint}`"
+        );
+        match spec["default"].as_str() {
+            Some(d) => assert!(hint.contains(&format!("Default: {d}")), "{key}: `{hint}`"),
+            None => assert_eq!(c["required"], true, "{key}: not marked required"),
+        }
+        assert_eq!(
+            c["visible"], true,
+            "{key}: not reachable with the panel open"
+        );
+    }
+    browser.screenshot("upload-all-settings", true).await;
+
+    // Settings no fixed field ever had: a count, a choice, a box and a number.
+    let csv = simulated(dir.path(), "tuned.csv", "0.05,0.04", 21);
+    let fields: Vec<(String, String)> = [
+        ("instrument", "bench-a"),
+        ("trap", "t1"),
+        ("bead_diameter_um", "1"),
+        ("temperature_c", "25"),
+        ("windows", "3"),
+        ("detrend", "linear"),
+        ("hydrodynamics", "true"),
+        ("time_tolerance", "0.002"),
+    ]
+    .iter()
+    .map(|(k, v)| (k.to_string(), v.to_string()))
+    .collect();
+    for (k, v) in &fields {
+        browser.set_field(k, v).await;
+    }
+    browser.pick_file(&csv).await;
+    browser.submit().await;
+    let id = browser.wait_for("the tuned result", RESULT_ID).await;
+    let id = id.as_str().unwrap_or("").to_string();
+    let doc = api_json(&server, &format!("/api/v1/calibrations/{id}")).await;
+    let used = &doc["result"]["options"];
+    assert_eq!(
+        (&used["windows"], &used["detrend"], &used["hydrodynamics"]),
+        (&json!(3), &json!("linear"), &json!(true)),
+        "{used}"
+    );
+    let stored = server
+        .store
+        .calibration(trapwise::http::auth::OPEN_LAB, &id)
+        .await
+        .expect("read")
+        .expect("stored");
+    for (key, value) in [
+        ("detrend", "linear"),
+        ("hydrodynamics", "true"),
+        ("time_tolerance", "0.002"),
+        ("windows", "3"),
+    ] {
+        assert!(
+            stored
+                .settings
+                .contains(&(key.to_string(), value.to_string())),
+            "{key}: {:?}",
+            stored.settings
+        );
+    }
+    // The page sent exactly these settings and labels: the same upload through the API finds
+    // the stored calibration by its idempotency key.
+    let bytes = std::fs::read(&csv).expect("read");
+    let (status, again) = api_upload(&server, &fields, Some(("tuned.csv", bytes))).await;
+    assert_eq!((status, &again["id"]), (200, &json!(id)), "{again}");
+
+    // The settings are remembered across a reload, the box included.
+    browser.goto(&server.url("/#/")).await;
+    browser.client.refresh().await.expect("reload");
+    browser.wait_settings().await;
+    let remembered = browser
+        .js(
+            "const v = (k) => document.getElementById('f-' + k);
+             return [v('windows').value, v('detrend').value, v('hydrodynamics').checked,
+                     v('time_tolerance').value];",
+            vec![],
+        )
+        .await;
+    assert_eq!(remembered, json!(["3", "linear", true, "0.002"]));
+    browser.close().await;
+    server.stop().await;
+
+    // On a server that wants a token, the status line says why there are no controls, and
+    // giving the token makes them.
+    let db = TestDb::new(Backend::Sqlite).await;
+    let protected = TestServer::start(
+        &db,
+        ServiceOptions {
+            tokens_required: true,
+            ..options()
+        },
+    )
+    .await;
+    let (_, secret) = protected.store.create_token("lab-a").await.expect("token");
+    let browser = Browser::start().await;
+    browser.goto(&protected.url("/")).await;
+    let refused = browser
+        .wait_for(
+            "the refused settings",
+            "const s = document.getElementById('settings-status');
+             return document.getElementById('upload-form').dataset.settings === 'error'
+               ? [s.textContent, s.dataset.code, document.getElementById('more-settings').open,
+                  document.querySelectorAll('[data-setting]').length]
+               : null;",
+        )
+        .await;
+    assert_eq!(refused[1], "token-required", "{refused}");
+    assert!(
+        refused[0].as_str().unwrap_or("").contains("access token"),
+        "{refused}"
+    );
+    assert_eq!((&refused[2], &refused[3]), (&json!(true), &json!(0)));
+    browser.set_field("token", &secret).await;
+    browser
+        .client
+        .find(Locator::Id("f-token"))
+        .await
+        .expect("the token field")
+        .send_keys("\u{E004}")
+        .await
+        .expect("press Tab");
+    browser.wait_settings().await;
+    let n_controls = browser
+        .js(
+            "return document.querySelectorAll('[data-setting]').length;",
+            vec![],
+        )
+        .await;
+    assert_eq!(n_controls, json!(specs.len()));
+    browser.close().await;
+    protected.stop().await;
 }

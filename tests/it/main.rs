@@ -11,6 +11,9 @@ mod architecture;
 // messages and exit codes (pinned by snapshot).
 mod cli;
 
+// The README's table of run settings against the settings table (a snapshot of it).
+mod docs;
+
 // Shared helpers: test databases on both backends, test servers on port 0, demo recordings
 // made with `trapwise simulate`, and the offline CLI as the reference.
 mod support;

@@ -1201,6 +1201,7 @@ async fn health_metrics_openapi_and_page_are_served(backend: Backend) {
         "/api/v1/calibrations/{id}/plots",
         "/api/v1/instruments",
         "/api/v1/instruments/{instrument}/traps/{trap}/history",
+        "/api/v1/settings",
         "/healthz",
         "/metrics",
     ] {
@@ -1212,6 +1213,152 @@ async fn health_metrics_openapi_and_page_are_served(backend: Backend) {
     assert_eq!(status, 200);
     assert!(ct.starts_with("text/html"));
     assert!(String::from_utf8_lossy(&page).contains("Laser safety"));
+    server.stop().await;
+}
+
+async fn the_settings_table_is_served_documented_and_taken_by_uploads(backend: Backend) {
+    use trapwise::settings::{KEYS, Kind, SPECS};
+    let db = TestDb::new(backend).await;
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let server = TestServer::start(&db, options()).await;
+    // The document lists every row of the table, in order, as the table states it.
+    let (status, doc) = get_json(&server, "/api/v1/settings", None).await;
+    assert_eq!(status, 200, "{doc}");
+    let entries = doc["settings"].as_array().cloned().unwrap_or_default();
+    let keys: Vec<&str> = entries.iter().filter_map(|e| e["key"].as_str()).collect();
+    assert_eq!(keys, KEYS.to_vec());
+    for (entry, spec) in entries.iter().zip(SPECS) {
+        let k = spec.key;
+        assert_eq!(entry["label"], spec.label, "{k}");
+        assert_eq!(entry["kind"], spec.kind.name(), "{k}");
+        assert_eq!(entry["unit"], spec.unit, "{k}");
+        assert_eq!(entry["help"], spec.help, "{k}");
+        assert_eq!(entry["required"], spec.required(), "{k}");
+        assert_eq!(entry["default"].is_null(), spec.required(), "{k}");
+        assert_eq!(entry["example"], spec.example, "{k}");
+        let choices = spec.choices().map(|c| serde_json::json!(c));
+        assert_eq!(entry.get("choices").cloned(), choices, "{k}");
+        assert!(
+            entry["flag"]
+                .as_str()
+                .is_some_and(|f| f.starts_with(&format!("--{}", spec.flag.long()))),
+            "{k}: {entry}"
+        );
+    }
+    let (status, problem) = get_json(&server, "/api/v1/settings?lang=de", None).await;
+    assert_eq!(
+        (status, &problem["field"]),
+        (400, &serde_json::json!("lang"))
+    );
+
+    // The OpenAPI document has the route, and one query parameter of the upload per row.
+    let (_, api) = get_json(&server, "/api/v1/openapi.json", None).await;
+    assert!(api["paths"]["/api/v1/settings"]["get"].is_object());
+    assert!(api["components"]["schemas"]["SettingsDocument"].is_object());
+    let params = api["paths"]["/api/v1/calibrations"]["post"]["parameters"]
+        .as_array()
+        .cloned()
+        .unwrap_or_default();
+    for spec in SPECS {
+        let k = spec.key;
+        let p = params
+            .iter()
+            .find(|p| p["name"] == k)
+            .unwrap_or_else(|| panic!("OpenAPI: no parameter {k}"));
+        assert_eq!(p["in"], "query", "{k}");
+        assert_eq!(p["required"], spec.required(), "{k}");
+        let description = p["description"].as_str().unwrap_or("");
+        assert!(
+            description.contains(spec.unit) && description.contains(spec.help),
+            "{k}: {description}"
+        );
+        let json_type = match spec.kind {
+            Kind::Number(_) => "number",
+            Kind::Count => "integer",
+            Kind::Boolean => "boolean",
+            Kind::Choice(_) | Kind::Filter | Kind::Names => "string",
+        };
+        assert_eq!(p["schema"]["type"], json_type, "{k}");
+        if json_type != "string" {
+            assert!(!p["schema"]["examples"][0].is_string(), "{k}: {p}");
+        }
+    }
+    assert_eq!(
+        params
+            .iter()
+            .filter(|p| p["name"] == "bead_diameter_um")
+            .count(),
+        1,
+        "a setting listed twice"
+    );
+
+    // A raw-body upload takes settings that only the table exposes as query parameters; the
+    // calibration used them, gives what `calibrate` gives with the same flags, and stores them
+    // in their canonical text.
+    let mut file = demo_csv(dir.path(), "tuned.csv", 23);
+    file.conditions.extend([
+        ("--windows", "windows", "2".to_string()),
+        ("--time-tolerance", "time_tolerance", "2e-3".to_string()),
+        ("--precision", "precision_percent", "2.0".to_string()),
+    ]);
+    let mut query = file.fields();
+    query.extend([
+        ("instrument".to_string(), "bench-c".to_string()),
+        ("trap".to_string(), "t".to_string()),
+        ("file_name".to_string(), file.name()),
+    ]);
+    let response = server
+        .client
+        .post(server.url(&with_query("/api/v1/calibrations", &query)))
+        .header("content-type", "text/csv")
+        .body(file.bytes())
+        .send()
+        .await
+        .expect("raw upload");
+    assert_eq!(response.status().as_u16(), 201);
+    let doc: Value = response.json().await.expect("JSON");
+    assert_eq!(doc["result"]["options"]["windows"], 2);
+    assert_eq!(doc["result"]["options"]["target_relative_precision"], 0.02);
+    assert_eq!(doc["result"], cli_result(&file));
+    let stored = server
+        .store
+        .calibration(trapwise::http::auth::OPEN_LAB, &text(&doc, "id"))
+        .await
+        .expect("read")
+        .expect("stored");
+    for (key, value) in [
+        ("precision_percent", "2"),
+        ("time_tolerance", "0.002"),
+        ("windows", "2"),
+    ] {
+        assert!(
+            stored
+                .settings
+                .contains(&(key.to_string(), value.to_string())),
+            "{key}: {:?}",
+            stored.settings
+        );
+    }
+    server.stop().await;
+
+    // With tokens required, it is read like the other documents: with a token only.
+    let server = TestServer::start(
+        &db,
+        ServiceOptions {
+            tokens_required: true,
+            ..options()
+        },
+    )
+    .await;
+    let (_, secret) = server.store.create_token("lab-a").await.expect("token");
+    let (status, problem) = get_json(&server, "/api/v1/settings", None).await;
+    assert_eq!(
+        (status, &problem["code"]),
+        (401, &serde_json::json!("token-required"))
+    );
+    let (status, doc) = get_json(&server, "/api/v1/settings", Some(&secret)).await;
+    assert_eq!(status, 200);
+    assert_eq!(doc["settings"].as_array().map(Vec::len), Some(SPECS.len()));
     server.stop().await;
 }
 
@@ -1360,6 +1507,7 @@ on_both_backends!(
     a_stalled_upload_is_408_and_stores_nothing,
     shutdown_finishes_an_upload_in_flight,
     health_metrics_openapi_and_page_are_served,
+    the_settings_table_is_served_documented_and_taken_by_uploads,
     upload_subcommand_prints_what_calibrate_prints,
     token_subcommand_creates_lists_and_revokes,
 );

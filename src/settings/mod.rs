@@ -1,0 +1,239 @@
+//! Run settings as text: one vocabulary of `key = value` pairs for the command line, HTTP form
+//! fields and query parameters, resolved into the typed options of ingest and calibration.
+//!
+//! The settings are the rows of one table, `spec::SPECS` (key, kind, unit, help, default,
+//! example, command-line flag). `Settings` holds the parsed values by key; `apply` parses by
+//! the row's kind, `to_pairs` writes the canonical text, and `resolve` checks the required
+//! settings and the ranges from the table and then builds `IngestOptions`, `RunConditions` and
+//! `AnalysisOptions`. A new setting is one row in `SPECS` plus its use in `resolve`.
+
+pub mod spec;
+
+use crate::calibration::{AnalysisOptions, RunConditions};
+use crate::equipartition::Detrend;
+use crate::ingest::{DEFAULT_TIME_TOLERANCE, Format, IngestOptions};
+use crate::recording::PositionUnit;
+use crate::spectrum::FilterSetting;
+use std::collections::BTreeMap;
+
+pub use spec::{Absent, Flag, KEYS, Kind, Range, SPECS, SettingSpec, Value, parse_filter};
+
+/// A setting that could not be used.
+#[derive(Clone, Debug, PartialEq, thiserror::Error)]
+pub enum SettingsError {
+    /// The key is not one of `KEYS`.
+    #[error("unknown setting `{key}`; known settings are: {known}")]
+    UnknownKey { key: String, known: String },
+    /// The value does not parse as the key's kind, or lies outside its range.
+    #[error("setting `{key}` = `{value}` is not valid: {expected}")]
+    BadValue {
+        key: String,
+        value: String,
+        expected: String,
+    },
+    /// A required setting is absent.
+    #[error("setting `{key}` is required: {hint}")]
+    Missing {
+        key: &'static str,
+        hint: &'static str,
+    },
+}
+
+/// Settings gathered from text, before resolution: the parsed value of each key given.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Settings {
+    values: BTreeMap<&'static str, Value>,
+}
+
+fn bad(key: &str, value: &str, expected: String) -> SettingsError {
+    SettingsError::BadValue {
+        key: key.to_string(),
+        value: value.to_string(),
+        expected,
+    }
+}
+
+/// Parses a position unit name (`nm` or `V`, or a spelled-out alias, any case).
+pub fn parse_unit(value: &str) -> Option<PositionUnit> {
+    match spec::UNIT_CHOICES.find(value)? {
+        "nm" => Some(PositionUnit::Nanometre),
+        "V" => Some(PositionUnit::Volt),
+        _ => None,
+    }
+}
+
+/// The detrending a `detrend` choice names.
+fn parse_detrend(name: &str) -> Option<Detrend> {
+    match spec::DETREND_CHOICES.find(name)? {
+        "mean" => Some(Detrend::Mean),
+        "linear" => Some(Detrend::Linear),
+        _ => None,
+    }
+}
+
+impl Settings {
+    /// Sets one key from text. Empty values leave the setting unset (a blank form field).
+    pub fn apply(&mut self, key: &str, value: &str) -> Result<(), SettingsError> {
+        let Some(spec) = spec::spec(key) else {
+            return Err(SettingsError::UnknownKey {
+                key: key.to_string(),
+                known: KEYS.join(", "),
+            });
+        };
+        if value.trim().is_empty() {
+            return Ok(());
+        }
+        let parsed = spec.kind.parse(value).map_err(|e| bad(key, value, e))?;
+        self.values.insert(spec.key, parsed);
+        Ok(())
+    }
+
+    /// The parsed value of `key`, if given.
+    pub fn get(&self, key: &str) -> Option<&Value> {
+        self.values.get(key)
+    }
+
+    /// The canonical text pairs of the settings given, sorted by key: what the upload client
+    /// sends, what is stored with a calibration, and what the idempotency key of an upload is
+    /// computed over (so their text must not change for a given value).
+    pub fn to_pairs(&self) -> Vec<(&'static str, String)> {
+        // A BTreeMap iterates in key order, which is the sorted order.
+        self.values.iter().map(|(k, v)| (*k, v.text())).collect()
+    }
+
+    fn number(&self, key: &str) -> Option<f64> {
+        match self.values.get(key) {
+            Some(Value::Number(x)) => Some(*x),
+            _ => None,
+        }
+    }
+
+    fn count(&self, key: &str) -> Option<usize> {
+        match self.values.get(key) {
+            Some(Value::Count(n)) => Some(*n),
+            _ => None,
+        }
+    }
+
+    fn boolean(&self, key: &str) -> Option<bool> {
+        match self.values.get(key) {
+            Some(Value::Boolean(b)) => Some(*b),
+            _ => None,
+        }
+    }
+
+    fn filter(&self, key: &str) -> Option<FilterSetting> {
+        match self.values.get(key) {
+            Some(Value::Filter(f)) => Some(*f),
+            _ => None,
+        }
+    }
+
+    fn names(&self, key: &str) -> Option<&[String]> {
+        match self.values.get(key) {
+            Some(Value::Names(n)) => Some(n),
+            _ => None,
+        }
+    }
+
+    /// The value of a choice turned into its type by `parse`; a name of the table that `parse`
+    /// does not know is reported as a bad value rather than ignored.
+    fn choice<T>(
+        &self,
+        key: &str,
+        parse: impl Fn(&str) -> Option<T>,
+    ) -> Result<Option<T>, SettingsError> {
+        match self.values.get(key) {
+            Some(Value::Choice(name)) => parse(name)
+                .map(Some)
+                .ok_or_else(|| bad(key, name, "this build does not know the name".into())),
+            _ => Ok(None),
+        }
+    }
+
+    /// A number the table marks as required: checked present by `check`.
+    fn required_number(&self, key: &'static str) -> Result<f64, SettingsError> {
+        self.number(key).ok_or(SettingsError::Missing {
+            key,
+            hint: match spec::spec(key).map(|s| s.absent) {
+                Some(Absent::Required { hint }) => hint,
+                _ => "give it",
+            },
+        })
+    }
+
+    /// The table's rules: every required setting is present (in table order) and every number
+    /// lies in its range.
+    fn check(&self) -> Result<(), SettingsError> {
+        for s in SPECS {
+            match s.absent {
+                Absent::Required { hint } if !self.values.contains_key(s.key) => {
+                    return Err(SettingsError::Missing { key: s.key, hint });
+                }
+                _ => {}
+            }
+        }
+        for s in SPECS {
+            if let (Kind::Number(range), Some(x)) = (s.kind, self.number(s.key)) {
+                range.check(x).map_err(|e| bad(s.key, &x.to_string(), e))?;
+            }
+        }
+        Ok(())
+    }
+
+    /// The typed options, or the first missing required setting or value out of range.
+    ///
+    /// Lengths arrive in micrometres and leave in metres, the viscosity in mPa s leaves in
+    /// Pa s, the precision in per cent leaves as a fraction: the core works in SI units.
+    pub fn resolve(
+        &self,
+    ) -> Result<(IngestOptions, RunConditions, AnalysisOptions), SettingsError> {
+        self.check()?;
+        let ingest = IngestOptions {
+            format: self.choice("format", Format::parse_name)?,
+            sample_rate_hz: self.number("sample_rate_hz"),
+            unit: self.choice("units", parse_unit)?,
+            channels: self.count("channels"),
+            volts_per_count: self.number("volts_per_count"),
+            time_tolerance: self
+                .number("time_tolerance")
+                .unwrap_or(DEFAULT_TIME_TOLERANCE),
+        };
+        let diameter_um = self.required_number("bead_diameter_um")?;
+        let temperature_c = self.required_number("temperature_c")?;
+        let mut conditions = RunConditions::new(diameter_um * 1e-6, temperature_c);
+        conditions.bead_diameter_se_m = self.number("bead_diameter_se_um").unwrap_or(0.0) * 1e-6;
+        conditions.temperature_se_c = self.number("temperature_se_c").unwrap_or(0.0);
+        conditions.viscosity_pa_s = self.number("viscosity_mpa_s").map(|v| v * 1e-3);
+        conditions.height_m = self.number("height_um").map(|h| h * 1e-6);
+        conditions.height_se_m = self.number("height_se_um").unwrap_or(0.0) * 1e-6;
+        if let Some(rho) = self.number("bead_density_kg_per_m3") {
+            conditions.bead_density_kg_per_m3 = rho;
+        }
+        let mut analysis = AnalysisOptions::default();
+        analysis.fit_range.f_min_hz = self.number("fit_min_hz");
+        analysis.fit_range.f_max_hz = self.number("fit_max_hz");
+        if let Some(w) = self.count("windows") {
+            analysis.n_windows = Some(w);
+        }
+        if let Some(f) = self.filter("detector_filter") {
+            analysis.filter = f;
+        }
+        if let Some(h) = self.boolean("hydrodynamics") {
+            analysis.hydrodynamics = h;
+        }
+        if let Some(d) = self.choice("detrend", parse_detrend)? {
+            analysis.detrend = d;
+        }
+        if let Some(a) = self.names("axial_axes") {
+            analysis.axial_axes = a.to_vec();
+        }
+        if let Some(p) = self.number("precision_percent") {
+            analysis.target_relative_precision = p / 100.0;
+        }
+        Ok((ingest, conditions, analysis))
+    }
+}
+
+#[cfg(test)]
+mod tests;
