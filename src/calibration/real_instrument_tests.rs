@@ -159,10 +159,7 @@ fn with_a_strong_filter_and_many_windows_beta_keeps_honest_errors() {
     let mut options = AnalysisOptions::default();
     options.hydrodynamics = false;
     options.filter = FilterSetting::Fixed(filter);
-    options.n_windows = std::env::var("TW_WINDOWS")
-        .ok()
-        .and_then(|w| w.parse().ok())
-        .or(Some(32));
+    options.n_windows = Some(32);
     let conditions = RunConditions::new(1.0e-6, 25.0);
     let mut rng = generator(9);
     let (mut values, mut ses) = (Vec::new(), Vec::new());
@@ -170,15 +167,6 @@ fn with_a_strong_filter_and_many_windows_beta_keeps_honest_errors() {
         let rec = filtered_volt_record(&mut rng, 1 << 17, fs, filter, beta_true);
         let cal = calibrate(&rec, &conditions, &options).expect("calibrates");
         let beta = cal.axes[0].sensitivity_nm_per_v.expect("volts give beta");
-        if values.len() < 5 {
-            let sp = cal.axes[0].spectrum.as_ref().unwrap();
-            eprintln!(
-                "beta {beta:?} fc {:?} p {} excl {:?}",
-                cal.axes[0].corner_frequency_hz,
-                sp.p_value,
-                cal.axes[0].stiffness_pn_per_nm.excluded
-            );
-        }
         values.push(beta.value);
         ses.push(beta.se);
     }
