@@ -15,3 +15,8 @@ tw=(cargo run --quiet --release --)
 "${tw[@]}" simulate -o kittiwake-trap1-pickup.f32 --units V --sensitivity 620 --stiffness 0.060 \
   --bead-diameter 2.0 --temperature 22 --sample-rate 50000 --duration 1 --seed 13 \
   --hum-amplitude 3 --hum-frequency 50 --drift 20
+# Instrument "kittiwake", trap 1, fast: the photodiode's parasitic filter (f3dB 7 kHz, alpha 0.3)
+# and the frequency-dependent drag on the 2 um bead, at 100 kHz for 2 s, raw f32 volts.
+"${tw[@]}" simulate -o kittiwake-trap1-fast.f32 --units V --sensitivity 620 --axes x,y \
+  --stiffness 0.15,0.12 --bead-diameter 2.0 --temperature 22 --sample-rate 100000 --duration 2 \
+  --seed 14 --detector-filter 7000:0.3 --hydrodynamics

@@ -317,7 +317,10 @@ pub fn physics(conditions: &RunConditions) -> Result<Physics, CalibrationError> 
         });
     }
     let viscosity = viscosity_at(conditions, conditions.temperature_c)?;
-    let fluid_density = water::water_density_kg_per_m3(conditions.temperature_c.clamp(0.0, 40.0))?;
+    let fluid_density = water::water_density_kg_per_m3(conditions.temperature_c.clamp(
+        water::WATER_MIN_TEMPERATURE_C,
+        water::WATER_MAX_TEMPERATURE_C,
+    ))?;
     let radius = conditions.bead_diameter_m / 2.0;
     let gamma0 = drag::stokes_drag_kg_per_s(viscosity, radius);
     let rel_d = conditions.bead_diameter_se_m / conditions.bead_diameter_m;

@@ -305,11 +305,11 @@ fn invalid_conditions_are_errors_not_panics() {
     }
     let hot = calibrate(
         &rec,
-        &RunConditions::new(1e-6, 80.0),
+        &RunConditions::new(1e-6, 120.0),
         &AnalysisOptions::default(),
     )
     .expect_err("outside the water formula's range");
-    assert!(hot.to_string().contains("80"), "{hot}");
+    assert!(hot.to_string().contains("120"), "{hot}");
     let mut low = conditions();
     low.height_m = Some(0.4e-6);
     let err = calibrate(&rec, &low, &AnalysisOptions::default()).expect_err("bead in the wall");

@@ -21,12 +21,110 @@ use realfft::num_complex::Complex;
 /// Smallest ratio of the synthesis period to the record length.
 const PERIOD_FACTOR: usize = 4;
 
+/// The spectrum of one synthesis, sampled once on the Fourier grid of its period, so that many
+/// records of the same spectrum cost one inverse FFT each (the statistical tests draw thousands).
+///
+/// It holds sqrt(E|X_k|^2) = sqrt(M S_a(f_k) / (2 dt)) for k = 0..=M/2 (see the module docs).
+#[derive(Clone, Debug)]
+pub struct SynthesisGrid {
+    sample_rate_hz: f64,
+    n_samples: usize,
+    period: usize,
+    /// Root of the expected power of each Fourier coefficient, signal-unit (unnormalised FFT).
+    coefficient_rms: Vec<f64>,
+}
+
+impl SynthesisGrid {
+    /// Samples `one_sided_psd(f_hz)` (signal-unit^2 / Hz, already aliased onto [0, fs/2]) at
+    /// f_k = k fs / M, k = 0..=M/2, for records of `n_samples` samples at `sample_rate_hz`; M is
+    /// the smallest power of two not below 4 `n_samples` (at least 4). Negative or NaN values of
+    /// the spectrum count as zero.
+    pub fn new(
+        one_sided_psd: impl Fn(f64) -> f64,
+        sample_rate_hz: f64,
+        n_samples: usize,
+    ) -> SynthesisGrid {
+        let period = (PERIOD_FACTOR * n_samples).next_power_of_two().max(4);
+        let dt = 1.0 / sample_rate_hz;
+        let m = period as f64;
+        let coefficient_rms = (0..=period / 2)
+            .map(|k| {
+                let f = k as f64 * sample_rate_hz / m;
+                (m * one_sided_psd(f) / (2.0 * dt)).max(0.0).sqrt()
+            })
+            .collect();
+        SynthesisGrid {
+            sample_rate_hz,
+            n_samples,
+            period,
+            coefficient_rms,
+        }
+    }
+
+    /// Sampling rate of the records, Hz.
+    pub fn sample_rate_hz(&self) -> f64 {
+        self.sample_rate_hz
+    }
+
+    /// Samples per record.
+    pub fn n_samples(&self) -> usize {
+        self.n_samples
+    }
+
+    /// The synthesis period M in samples (a power of two, at least 4 `n_samples`): the records'
+    /// autocovariance is the stationary one plus its images at lags shifted by multiples of M.
+    pub fn period(&self) -> usize {
+        self.period
+    }
+
+    /// One record: draws the coefficients (one standard normal for the real ones at k = 0 and
+    /// M/2, two for the others, in order of k), transforms back and keeps the first
+    /// `n_samples` samples.
+    pub fn record<R: rand::Rng + ?Sized>(&self, rng: &mut R) -> Vec<f64> {
+        if self.n_samples == 0 {
+            return Vec::new();
+        }
+        let half = self.period / 2;
+        let mut spectrum: Vec<Complex<f64>> = self
+            .coefficient_rms
+            .iter()
+            .enumerate()
+            .map(|(k, &rms)| {
+                if k == 0 || k == half {
+                    // Real coefficients: the whole variance in the real part.
+                    let z: f64 = StandardNormal.sample(rng);
+                    Complex::new(rms * z, 0.0)
+                } else {
+                    let sd = rms * std::f64::consts::FRAC_1_SQRT_2;
+                    let re: f64 = StandardNormal.sample(rng);
+                    let im: f64 = StandardNormal.sample(rng);
+                    Complex::new(sd * re, sd * im)
+                }
+            })
+            .collect();
+        let plan = crate::fft::inverse(self.period);
+        let mut out = vec![0.0; self.period];
+        // The coefficients at DC and Nyquist are real by construction, so the transform cannot
+        // fail.
+        if plan.process(&mut spectrum, &mut out).is_err() {
+            return vec![0.0; self.n_samples];
+        }
+        out.truncate(self.n_samples);
+        let m = self.period as f64;
+        for v in &mut out {
+            *v /= m;
+        }
+        out
+    }
+}
+
 /// One record of `n_samples` samples of a zero-mean stationary Gaussian process whose one-sided
 /// power spectral density (signal-unit^2 / Hz, already aliased onto [0, fs/2]) is
 /// `one_sided_psd(f_hz)`, sampled at `sample_rate_hz`.
 ///
 /// The FFT is unnormalised (X_k = sum_j x_j exp(-2 pi i j k / M)), so E|X_k|^2 = M S_a / (2 dt)
-/// for 0 < k < M/2 and the inverse transform is divided by M.
+/// for 0 < k < M/2 and the inverse transform is divided by M. For many records of one spectrum,
+/// build a [`SynthesisGrid`] once and call [`SynthesisGrid::record`].
 pub fn gaussian_record<R: rand::Rng + ?Sized>(
     one_sided_psd: impl Fn(f64) -> f64,
     sample_rate_hz: f64,
@@ -36,37 +134,7 @@ pub fn gaussian_record<R: rand::Rng + ?Sized>(
     if n_samples == 0 {
         return Vec::new();
     }
-    let period = (PERIOD_FACTOR * n_samples).next_power_of_two().max(4);
-    let dt = 1.0 / sample_rate_hz;
-    let half = period / 2;
-    let m = period as f64;
-    let mut spectrum: Vec<Complex<f64>> = (0..=half)
-        .map(|k| {
-            let f = k as f64 * sample_rate_hz / m;
-            let power = (m * one_sided_psd(f) / (2.0 * dt)).max(0.0);
-            if k == 0 || k == half {
-                // Real coefficients: the whole variance in the real part.
-                let z: f64 = StandardNormal.sample(rng);
-                Complex::new(power.sqrt() * z, 0.0)
-            } else {
-                let sd = (power / 2.0).sqrt();
-                let re: f64 = StandardNormal.sample(rng);
-                let im: f64 = StandardNormal.sample(rng);
-                Complex::new(sd * re, sd * im)
-            }
-        })
-        .collect();
-    let plan = crate::fft::inverse(period);
-    let mut out = vec![0.0; period];
-    // The coefficients at DC and Nyquist are real by construction, so the transform cannot fail.
-    if plan.process(&mut spectrum, &mut out).is_err() {
-        return vec![0.0; n_samples];
-    }
-    out.truncate(n_samples);
-    for v in &mut out {
-        *v /= m;
-    }
-    out
+    SynthesisGrid::new(one_sided_psd, sample_rate_hz, n_samples).record(rng)
 }
 
 #[cfg(test)]

@@ -2,9 +2,10 @@
 //!
 //! The drag on a trapped bead is proportional to the viscosity of the medium, so the calibration
 //! needs it at the temperature of the experiment. This module gives the IAPWS 2008 viscosity
-//! formulation evaluated at the density from the Tanaka et al. (2001) formula, and the
-//! Boltzmann constant. Everything is in SI units; temperatures in degrees Celsius carry `_c` in
-//! their name and absolute temperatures carry `_k`.
+//! formulation evaluated at the density of liquid water at 0.1 MPa over 0 to 99 °C (the Tanaka
+//! et al. (2001) formula up to 40 °C, Kell's (1975) above, joined continuously at 40 °C), and
+//! the Boltzmann constant. Everything is in SI units; temperatures in degrees Celsius carry `_c`
+//! in their name and absolute temperatures carry `_k`.
 
 #[cfg(test)]
 mod tests;
@@ -19,15 +20,19 @@ pub const ZERO_CELSIUS_K: f64 = 273.15;
 
 /// Lowest temperature (°C) accepted by [`water_viscosity_pa_s`] and [`water_density_kg_per_m3`].
 ///
-/// This is the lower end of the range of the Tanaka et al. (2001) density formula.
+/// This is the lower end of the range of the Tanaka et al. (2001) density formula (supercooled
+/// water is not covered).
 pub const WATER_MIN_TEMPERATURE_C: f64 = 0.0;
 
 /// Highest temperature (°C) accepted by [`water_viscosity_pa_s`] and [`water_density_kg_per_m3`].
 ///
-/// This is the upper end of the range of the Tanaka et al. (2001) density formula. We do not
-/// extrapolate it: a trap experiment hotter than 40 °C is unusual, and the user can then give
-/// the viscosity directly.
-pub const WATER_MAX_TEMPERATURE_C: f64 = 40.0;
+/// Liquid water at 0.101325 MPa boils at about 99.97 °C; the formulas are checked against the
+/// IAPWS-95 and IAPWS 2008 fixture up to 99 °C, and nothing above is accepted.
+pub const WATER_MAX_TEMPERATURE_C: f64 = 99.0;
+
+/// Temperature (°C) where the density switches from the Tanaka et al. (2001) formula (below and
+/// at it) to Kell's (1975) formula (above it): the upper end of Tanaka's range.
+pub const DENSITY_JOIN_TEMPERATURE_C: f64 = 40.0;
 
 /// Errors of the water-property layer: a temperature the formulas cannot be used at.
 #[derive(Debug, Clone, Copy, PartialEq, thiserror::Error)]
@@ -40,8 +45,8 @@ pub enum WaterError {
         /// The value that was given, in °C.
         temperature_c: f64,
     },
-    /// The temperature lies outside 0 to 40 °C, the range of the Tanaka et al. (2001) density
-    /// formula on which the default viscosity relies.
+    /// The temperature lies outside 0 to 99 °C, the liquid range at atmospheric pressure that
+    /// the built-in density and viscosity formulas cover.
     #[error(
         "water temperature_c {temperature_c} °C is outside the valid range {min_c} to {max_c} °C of the built-in water formulas; give the temperature in degrees Celsius (not kelvin), or give --viscosity in Pa s directly"
     )]
@@ -76,15 +81,19 @@ fn check_temperature_c(temperature_c: f64) -> Result<(), WaterError> {
 /// doi:10.1063/1.3088050; see [`iapws2008_viscosity_pa_s`]) with the critical enhancement
 /// factor set to 1, which is immaterial far from the critical point.
 /// The density it needs is taken from [`water_density_kg_per_m3`] (Tanaka et al., Metrologia 38,
-/// 301 (2001)).
+/// 301 (2001), up to 40 °C; Kell, J. Chem. Eng. Data 20, 97 (1975), above).
 ///
 /// Accuracy: the release states an uncertainty from under 1% up to 7% depending on the state;
-/// for ambient liquid water at atmospheric pressure it is 1% or better (from memory, unverified).
-/// In 20 to 40 °C it agrees with the independent Kestin, Sokolov & Wakeham (1978) correlation to
-/// about 0.04%, which the unit tests check to 0.1%.
+/// for the liquid at atmospheric pressure it is 1% or better (from memory, unverified). This is
+/// the uncertainty of the formulation against real water, and it dominates: against the
+/// formulation itself (IAPWS 2008 at the IAPWS-95 density, computed with the `iapws` package in
+/// tests/data/water/) this function agrees to 3e-6 relative over 0.5 to 99 °C, the effect of the
+/// density formulas' own small differences (the unit tests check 1e-5). In 20 to 40 °C it also
+/// agrees with the independent Kestin, Sokolov & Wakeham (1978) correlation to about 0.04%,
+/// which the unit tests check to 0.1%.
 ///
-/// Valid range: [`WATER_MIN_TEMPERATURE_C`] to [`WATER_MAX_TEMPERATURE_C`] inclusive (0 to 40 °C,
-/// the range of the density formula); outside it, or for NaN, this returns a [`WaterError`].
+/// Valid range: [`WATER_MIN_TEMPERATURE_C`] to [`WATER_MAX_TEMPERATURE_C`] inclusive (0 to 99 °C,
+/// the liquid at 0.1 MPa); outside it, or for NaN, this returns a [`WaterError`].
 pub fn water_viscosity_pa_s(temperature_c: f64) -> Result<f64, WaterError> {
     let density_kg_per_m3 = water_density_kg_per_m3(temperature_c)?;
     Ok(iapws2008_viscosity_pa_s(
@@ -95,19 +104,66 @@ pub fn water_viscosity_pa_s(temperature_c: f64) -> Result<f64, WaterError> {
 
 /// Density of air-free water at 101.325 kPa, in kg/m3, at `temperature_c` (°C, ITS-90).
 ///
-/// Formula of Tanaka et al., Metrologia 38, 301 (2001):
+/// From 0 to 40 °C ([`DENSITY_JOIN_TEMPERATURE_C`]) the formula of Tanaka et al., Metrologia 38,
+/// 301 (2001):
 ///
 /// rho(t) = a5 [1 - (t + a1)^2 (t + a2) / (a3 (t + a4))],
 ///
 /// with a1 = -3.983035 °C, a2 = 301.797 °C, a3 = 522528.9 °C^2, a4 = 69.34881 °C and
 /// a5 = 999.974950 kg/m3, for water of standard mean ocean water isotopic composition (from
-/// memory, unverified).
+/// memory, unverified). Against IAPWS-95 (the fixture of tests/data/water/) it agrees to
+/// 1.2e-3 kg/m3 (1.2e-6 relative) over 0.5 to 40 °C (checked in the unit tests to 2e-3).
 ///
-/// Valid range: 0 to 40 °C inclusive, as in the paper; outside it, or for NaN, this returns a
-/// [`WaterError`].
+/// Above 40 °C, up to [`WATER_MAX_TEMPERATURE_C`], Kell's polynomial (see
+/// [`kell1975_density_kg_per_m3`]), shifted by the constant that makes it equal Tanaka's formula
+/// at 40 °C: the join is continuous in value by construction, and the slopes of the two sides
+/// differ there by 1.7e-4 kg/m3/K against a slope of -0.38 kg/m3/K (4.4e-4 relative; the
+/// unit tests check 1e-3). The shift is 3.1e-3 kg/m3 (3e-6 relative), the size of the offset
+/// between Kell's 1975 density scale and IAPWS-95's; with it the formula agrees with IAPWS-95
+/// to 1.6e-3 kg/m3 (1.6e-6 relative) over 40 to 99 °C (checked in the unit tests to 2.5e-3).
+///
+/// Outside 0 to 99 °C, or for NaN, this returns a [`WaterError`].
 pub fn water_density_kg_per_m3(temperature_c: f64) -> Result<f64, WaterError> {
     check_temperature_c(temperature_c)?;
-    Ok(tanaka2001_density_kg_per_m3(temperature_c))
+    if temperature_c <= DENSITY_JOIN_TEMPERATURE_C {
+        return Ok(tanaka2001_density_kg_per_m3(temperature_c));
+    }
+    let shift_kg_per_m3 = tanaka2001_density_kg_per_m3(DENSITY_JOIN_TEMPERATURE_C)
+        - kell1975_density_kg_per_m3(DENSITY_JOIN_TEMPERATURE_C);
+    Ok(kell1975_density_kg_per_m3(temperature_c) + shift_kg_per_m3)
+}
+
+/// Kell's density of air-free water at 1 atm, in kg/m3, at `temperature_c` (°C, ITS-90), without
+/// a range check and without the shift that [`water_density_kg_per_m3`] applies above 40 °C.
+///
+/// Kell, J. Chem. Eng. Data 20, 97 (1975), valid 0 to 150 °C on the IPTS-68 scale:
+///
+/// rho = (999.83952 + 16.945176 t - 7.9870401e-3 t^2 - 46.170461e-6 t^3 + 105.56302e-9 t^4
+///        - 280.54253e-12 t^5) / (1 + 16.879850e-3 t),  t = t68 in °C
+///
+/// (coefficients recalled from memory, unverified except through the fixture check below). The
+/// ITS-90 temperature is converted with t68 = 1.00024 t90, the usual approximation over 0 to
+/// 100 °C (recalled from memory, unverified). Checked: against IAPWS-95 at 0.101325 MPa (the
+/// `iapws` fixture in tests/data/water/) the unshifted formula is within 4.7e-3 kg/m3 (5e-6
+/// relative) over 0.5 to 99 °C, an offset nearly constant in temperature.
+pub fn kell1975_density_kg_per_m3(temperature_c: f64) -> f64 {
+    // Coefficients of Kell (1975), numerator highest power first, then the denominator's.
+    const NUMERATOR: [f64; 6] = [
+        -280.54253e-12,
+        105.56302e-9,
+        -46.170461e-6,
+        -7.9870401e-3,
+        16.945176,
+        999.83952,
+    ];
+    const DENOMINATOR_SLOPE_PER_C: f64 = 16.879850e-3;
+    // ITS-90 to IPTS-68 (see the doc comment).
+    const IPTS68_PER_ITS90: f64 = 1.00024;
+    let t68 = IPTS68_PER_ITS90 * temperature_c;
+    let numerator = NUMERATOR
+        .iter()
+        .fold(0.0_f64, |acc, &c| acc.mul_add(t68, c));
+    numerator / DENOMINATOR_SLOPE_PER_C.mul_add(t68, 1.0)
 }
 
 /// The Tanaka et al. (2001) density formula without a range check (see

@@ -14,6 +14,11 @@ mod cli;
 // The README's table of run settings against the settings table (a snapshot of it).
 mod docs;
 
+// `trapwise simulate` with instrument terms (filter, drag, noise floor, 1/f drift, lines, camera
+// exposure, fixed start): periodograms against the declared spectra, refused flags (pinned by
+// snapshot), and the demo recordings reproduced byte for byte.
+mod cli_simulate;
+
 // Shared helpers: test databases on both backends, test servers on port 0, demo recordings
 // made with `trapwise simulate`, and the offline CLI as the reference.
 mod support;
