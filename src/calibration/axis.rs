@@ -101,7 +101,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         spectrum: spectral.fit.as_ref().ok(),
         peaks: &spectral.peaks,
         consensus: stiffness.stiffness.consensus,
-        disagreements: &disagreements(&stiffness.discrepancies),
+        disagreements: &disagreements(&stiffness.discrepancies, &stiffness.stiffness.excluded),
         target_relative_precision: options.target_relative_precision,
         diffusion_theory_m2_per_s: d_theory,
         radius_m: conditions.bead_diameter_m / 2.0,
@@ -370,12 +370,21 @@ pub(crate) fn consensus_stage(
     }
 }
 
-/// The pairs of methods that differ by more than `Z_LIMIT` standard errors, as the findings
-/// take them.
-fn disagreements(discrepancies: &[consensus::Discrepancy]) -> Vec<MethodDisagreement> {
+/// The pairs of methods left in the consensus that differ by more than `Z_LIMIT` standard
+/// errors, as the findings take them (a method left out already has its reason).
+fn disagreements(
+    discrepancies: &[consensus::Discrepancy],
+    excluded: &[Option<String>; 3],
+) -> Vec<MethodDisagreement> {
+    let standing = |m: &str| {
+        consensus::METHODS
+            .iter()
+            .position(|n| *n == m)
+            .is_some_and(|i| excluded[i].is_none())
+    };
     discrepancies
         .iter()
-        .filter(|d| d.z.abs() > consensus::Z_LIMIT)
+        .filter(|d| d.z.abs() > consensus::Z_LIMIT && standing(d.first) && standing(d.second))
         .map(|d| MethodDisagreement {
             first: d.first,
             second: d.second,
