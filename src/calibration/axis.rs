@@ -251,18 +251,18 @@ pub(crate) fn exclusions(
         .and_then(|f| f.unidentified_reason())
     {
         Some(reason)
-    } else if let Some(fit) = spectral
-        .fit
-        .as_ref()
-        .ok()
-        .filter(|f| f.p_value < FIT_REJECTION_P)
-    {
-        Some(format!(
-            "its model does not fit the spectrum (chi-square {:.1} on {} degrees of freedom, p = {:.1e} < {FIT_REJECTION_P})",
-            fit.chi_square, fit.degrees_of_freedom, fit.p_value
-        ))
     } else {
-        None
+        spectral
+            .fit
+            .as_ref()
+            .ok()
+            .filter(|f| f.p_value < FIT_REJECTION_P)
+            .map(|fit| {
+                format!(
+                    "its model does not fit the spectrum (chi-square {:.1} on {} degrees of freedom, p = {:.1e} < {FIT_REJECTION_P})",
+                    fit.chi_square, fit.degrees_of_freedom, fit.p_value
+                )
+            })
     };
     let mut unmodelled = Vec::new();
     if !matches!(spectral.model.filter, crate::spectrum::FilterSetting::None) {

@@ -4,32 +4,10 @@
 
 use super::consensus::{self, Discrepancy, Verdict};
 use super::*;
-use crate::recording::{AxisTrace, PositionUnit};
 use crate::simulate::{gaussian_record, generator};
 use crate::spectrum::{DetectorFilter, SpectrumModel, aliased_lorentzian_one_sided};
-use std::f64::consts::PI;
 
-const KAPPA_PN_PER_NM: f64 = 0.05;
-
-/// Corner frequency (Hz) and diffusion coefficient (nm^2/s) of a 1 um bead in water at 25 C in a
-/// trap of `KAPPA_PN_PER_NM` (kappa = 2 pi gamma fc, D = kB T / gamma, Einstein).
-fn truth() -> (f64, f64) {
-    let phys = physics(&RunConditions::new(1.0e-6, 25.0)).expect("valid conditions");
-    let gamma = phys.stokes_drag_kg_per_s.value;
-    let fc = KAPPA_PN_PER_NM * 1e-3 / (2.0 * PI * gamma);
-    (fc, phys.thermal_energy_j / gamma * 1e18)
-}
-
-fn one_axis(samples: Vec<f64>, sample_rate_hz: f64) -> Recording {
-    Recording {
-        sample_rate_hz,
-        unit: PositionUnit::Nanometre,
-        axes: vec![AxisTrace {
-            name: "x".into(),
-            samples,
-        }],
-    }
-}
+use super::synthetic_records::{KAPPA_PN_PER_NM, one_axis, truth};
 
 /// A record of the aliased photodiode-filtered Lorentzian (filter of Berg-Sorensen, Oddershede,
 /// Florin & Flyvbjerg, J. Appl. Phys. 93, 3167 (2003), recalled from memory, unverified; alias
@@ -63,8 +41,10 @@ fn a_declared_photodiode_filter_leaves_the_unmodelled_methods_out_and_the_consen
         f3db_hz: 6000.0,
         alpha: 0.15,
     };
-    let mut options = AnalysisOptions::default();
-    options.filter = FilterSetting::Fixed(filter);
+    let options = AnalysisOptions {
+        filter: FilterSetting::Fixed(filter),
+        ..AnalysisOptions::default()
+    };
     let conditions = RunConditions::new(1.0e-6, 25.0);
     let seeds = 40u64;
     let mut z_sum = 0.0;

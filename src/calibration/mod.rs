@@ -17,6 +17,8 @@ mod propagation;
 mod real_instrument_tests;
 mod spectral;
 #[cfg(test)]
+mod synthetic_records;
+#[cfg(test)]
 mod tests;
 mod time_domain;
 

@@ -5,32 +5,12 @@
 //! the truth or 2.5 of its reported standard errors.
 
 use super::*;
-use crate::recording::{AxisTrace, PositionUnit};
+use crate::recording::PositionUnit;
 use crate::simulate::{gaussian_record, generator};
 use crate::spectrum::aliased_lorentzian_one_sided;
 use std::f64::consts::PI;
 
-const KAPPA_PN_PER_NM: f64 = 0.05;
-
-/// Corner frequency (Hz) and diffusion coefficient (nm^2/s) of a 1 um bead in water at 25 C in a
-/// trap of `KAPPA_PN_PER_NM` (kappa = 2 pi gamma fc; Einstein's D = kB T / gamma).
-fn truth() -> (f64, f64) {
-    let phys = physics(&RunConditions::new(1.0e-6, 25.0)).expect("valid conditions");
-    let gamma = phys.stokes_drag_kg_per_s.value;
-    let fc = KAPPA_PN_PER_NM * 1e-3 / (2.0 * PI * gamma);
-    (fc, phys.thermal_energy_j / gamma * 1e18)
-}
-
-fn one_axis(samples: Vec<f64>, sample_rate_hz: f64) -> Recording {
-    Recording {
-        sample_rate_hz,
-        unit: PositionUnit::Nanometre,
-        axes: vec![AxisTrace {
-            name: "x".into(),
-            samples,
-        }],
-    }
-}
+use super::synthetic_records::{KAPPA_PN_PER_NM, one_axis, truth};
 
 /// The bar for one record: within 3 % of the truth or 2.5 reported standard errors,
 /// whichever is larger.
@@ -66,8 +46,10 @@ fn a_strong_stage_oscillation_off_the_fourier_grid_is_subtracted_before_the_spec
         for (j, v) in x.iter_mut().enumerate() {
             *v += amplitude_nm * (2.0 * PI * line_hz * j as f64 / fs + 0.4).sin();
         }
-        let mut options = AnalysisOptions::default();
-        options.hydrodynamics = false;
+        let options = AnalysisOptions {
+            hydrodynamics: false,
+            ..AnalysisOptions::default()
+        };
         let cal = calibrate(
             &one_axis(x, fs),
             &RunConditions::new(1.0e-6, 25.0),
@@ -156,10 +138,12 @@ fn with_a_strong_filter_and_many_windows_beta_keeps_honest_errors() {
     };
     let beta_true = 300.0;
     let fs = 100_000.0;
-    let mut options = AnalysisOptions::default();
-    options.hydrodynamics = false;
-    options.filter = FilterSetting::Fixed(filter);
-    options.n_windows = Some(32);
+    let options = AnalysisOptions {
+        hydrodynamics: false,
+        filter: FilterSetting::Fixed(filter),
+        n_windows: Some(32),
+        ..AnalysisOptions::default()
+    };
     let conditions = RunConditions::new(1.0e-6, 25.0);
     let mut rng = generator(9);
     let (mut values, mut ses) = (Vec::new(), Vec::new());
@@ -225,8 +209,10 @@ fn frequency_dependent_drag_modelled_gives_the_right_consensus_for_large_beads()
         }),
     };
     let theta = [fc.ln(), d.ln()];
-    let mut options = AnalysisOptions::default();
-    options.hydrodynamics = true;
+    let options = AnalysisOptions {
+        hydrodynamics: true,
+        ..AnalysisOptions::default()
+    };
     let mut rng = generator(31);
     let mut z_sum = 0.0;
     let records = 40;
