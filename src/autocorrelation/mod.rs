@@ -607,6 +607,94 @@ pub fn fit_exponential(
     n_samples: usize,
     options: &AcfFitOptions,
 ) -> Result<ExponentialFit, AcfError> {
+    let LagWindow {
+        lags,
+        data,
+        lag0,
+        lag1,
+    } = lag_window(acov, sample_rate_hz, n_samples, options)?;
+    let problem = Problem {
+        lags: &lags,
+        data: &data,
+        n_samples,
+    };
+    let (amplitude, c, iterations) = problem.solve(lag1, lag0)?;
+    let system = problem
+        .weighted_system(amplitude, c)
+        .ok_or(AcfError::NotConverged {
+            iterations,
+            reason: "weight matrix not positive definite at the solution",
+        })?;
+    let covariance = system
+        .normal_matrix
+        .try_inverse()
+        .ok_or(AcfError::NotConverged {
+            iterations,
+            reason: "singular normal matrix at the solution",
+        })?;
+
+    let dt_s = 1.0 / sample_rate_hz;
+    let ln_c = c.ln();
+    let relaxation_time_s = -dt_s / ln_c;
+    let dtau_dc = dt_s / (c * ln_c * ln_c);
+    let relaxation_time_se_s = dtau_dc.abs() * covariance[(1, 1)].max(0.0).sqrt();
+    let amplitude_se = covariance[(0, 0)].max(0.0).sqrt();
+    // Row of (J^T W J)^-1 J^T W for c: covariance row 1 times B^T, with B = W J.
+    let tau_influence = lags
+        .iter()
+        .enumerate()
+        .map(|(i, &lag)| {
+            let weight = covariance[(1, 0)].mul_add(
+                system.weighted_jacobian[(i, 0)],
+                covariance[(1, 1)] * system.weighted_jacobian[(i, 1)],
+            );
+            (lag, dtau_dc * weight)
+        })
+        .collect();
+    let degrees_of_freedom = lags.len() - 2;
+    if !(relaxation_time_s.is_finite() && relaxation_time_se_s.is_finite()) {
+        return Err(AcfError::NotConverged {
+            iterations,
+            reason: "non-finite relaxation time or standard error",
+        });
+    }
+    Ok(ExponentialFit {
+        relaxation_time_s,
+        relaxation_time_se_s,
+        amplitude,
+        amplitude_se,
+        model: system.model,
+        acov: data,
+        lags,
+        chi_square: system.chi_square,
+        degrees_of_freedom,
+        tau_influence,
+    })
+}
+
+/// The lags a fit uses and the autocovariance there.
+pub(crate) struct LagWindow {
+    /// Lags used, ascending.
+    pub(crate) lags: Vec<usize>,
+    /// The autocovariance at those lags.
+    pub(crate) data: Vec<f64>,
+    /// The autocovariance at lag 0.
+    pub(crate) lag0: f64,
+    /// The autocovariance at lag 1.
+    pub(crate) lag1: f64,
+}
+
+/// The checks and the lag window of [`fit_exponential`]: lags `options.first_lag..=last_lag`, strided to at most
+/// `options.max_lags_used`, `last_lag` from [`default_last_lag`] unless given.
+///
+/// # Errors
+/// As listed at [`fit_exponential`].
+pub(crate) fn lag_window(
+    acov: &[f64],
+    sample_rate_hz: f64,
+    n_samples: usize,
+    options: &AcfFitOptions,
+) -> Result<LagWindow, AcfError> {
     if !(sample_rate_hz.is_finite() && sample_rate_hz > 0.0) {
         return Err(AcfError::InvalidSampleRate {
             value: sample_rate_hz,
@@ -688,62 +776,11 @@ pub fn fit_exponential(
         return Err(too_few(last_lag, lags.len()));
     }
 
-    let problem = Problem {
-        lags: &lags,
-        data: &data,
-        n_samples,
-    };
-    let (amplitude, c, iterations) = problem.solve(lag1, lag0)?;
-    let system = problem
-        .weighted_system(amplitude, c)
-        .ok_or(AcfError::NotConverged {
-            iterations,
-            reason: "weight matrix not positive definite at the solution",
-        })?;
-    let covariance = system
-        .normal_matrix
-        .try_inverse()
-        .ok_or(AcfError::NotConverged {
-            iterations,
-            reason: "singular normal matrix at the solution",
-        })?;
-
-    let dt_s = 1.0 / sample_rate_hz;
-    let ln_c = c.ln();
-    let relaxation_time_s = -dt_s / ln_c;
-    let dtau_dc = dt_s / (c * ln_c * ln_c);
-    let relaxation_time_se_s = dtau_dc.abs() * covariance[(1, 1)].max(0.0).sqrt();
-    let amplitude_se = covariance[(0, 0)].max(0.0).sqrt();
-    // Row of (J^T W J)^-1 J^T W for c: covariance row 1 times B^T, with B = W J.
-    let tau_influence = lags
-        .iter()
-        .enumerate()
-        .map(|(i, &lag)| {
-            let weight = covariance[(1, 0)].mul_add(
-                system.weighted_jacobian[(i, 0)],
-                covariance[(1, 1)] * system.weighted_jacobian[(i, 1)],
-            );
-            (lag, dtau_dc * weight)
-        })
-        .collect();
-    let degrees_of_freedom = lags.len() - 2;
-    if !(relaxation_time_s.is_finite() && relaxation_time_se_s.is_finite()) {
-        return Err(AcfError::NotConverged {
-            iterations,
-            reason: "non-finite relaxation time or standard error",
-        });
-    }
-    Ok(ExponentialFit {
-        relaxation_time_s,
-        relaxation_time_se_s,
-        amplitude,
-        amplitude_se,
-        model: system.model,
-        acov: data,
+    Ok(LagWindow {
         lags,
-        chi_square: system.chi_square,
-        degrees_of_freedom,
-        tau_influence,
+        data,
+        lag0,
+        lag1,
     })
 }
 
