@@ -8,7 +8,22 @@
 //! Sample autocovariances at neighbouring lags are strongly correlated, so the fit weights them by
 //! the inverse of their asymptotic covariance (Bartlett's formula) rather than treating them as
 //! independent points; this is what makes the reported standard errors honest.
+//!
+//! Real detectors do not record a plain exponential: the photodiode's parasitic filter, the
+//! frequency dependence of the drag and a camera's exposure all change the autocovariance.
+//! [`TimeDomainModel`] holds the same models the spectral fit has, as autocovariances (closed
+//! forms, or a numerical cosine transform for hydrodynamic drag), and
+//! [`fit_autocovariance_model`] fits fc and D to any of them with Bartlett weights computed from
+//! the model itself; [`variance_factor`] corrects equipartition for the same effects.
 //! The module is pure: plain slices in, plain structs out.
+
+mod bartlett;
+mod model;
+mod model_fit;
+mod quadrature;
+
+pub use model::{TimeDomainModel, variance_factor};
+pub use model_fit::{ModelAcfFit, fit_autocovariance_model};
 
 use nalgebra::{DMatrix, DVector, Matrix2, Vector2};
 use realfft::num_complex::Complex;
@@ -104,9 +119,29 @@ pub enum AcfError {
         /// The significance threshold 3/sqrt(n_samples).
         threshold: f64,
     },
+    /// A field of the [`TimeDomainModel`] is out of its range.
+    #[error("model.{field} = {value} is invalid: it must be {requirement}")]
+    InvalidModel {
+        /// The field, e.g. `exposure_s`.
+        field: &'static str,
+        /// The rejected value.
+        value: f64,
+        /// What the field must be.
+        requirement: &'static str,
+    },
+    /// The starting values of [`fit_autocovariance_model`] are not positive finite numbers.
+    #[error(
+        "starting values fc = {corner_frequency_hz} Hz, D = {diffusion} are not positive finite numbers; start from the spectral fit's corner frequency and diffusion coefficient"
+    )]
+    InvalidStart {
+        /// The starting corner frequency, Hz.
+        corner_frequency_hz: f64,
+        /// The starting diffusion coefficient, signal-unit^2/s.
+        diffusion: f64,
+    },
     /// The Gauss-Newton iteration did not converge.
     #[error(
-        "exponential fit did not converge after {iterations} iterations ({reason}); inspect the autocovariance for drift or non-exponential decay, or set options.last_lag by hand"
+        "autocorrelation fit did not converge after {iterations} iterations ({reason}); inspect the autocovariance for drift or a decay the model does not describe, or set options.last_lag by hand"
     )]
     NotConverged {
         /// Iterations performed.
@@ -116,7 +151,7 @@ pub enum AcfError {
     },
 }
 
-/// Options of [`fit_exponential`].
+/// Options of [`fit_exponential`] and [`fit_autocovariance_model`].
 #[derive(Clone, Debug)]
 pub struct AcfFitOptions {
     /// First lag used (default 1): lag 0 also holds the variance of white detection noise.
@@ -684,7 +719,8 @@ pub(crate) struct LagWindow {
     pub(crate) lag1: f64,
 }
 
-/// The checks and the lag window of [`fit_exponential`]: lags `options.first_lag..=last_lag`, strided to at most
+/// The checks and the lag window shared by [`fit_exponential`] and
+/// [`fit_autocovariance_model`]: lags `options.first_lag..=last_lag`, strided to at most
 /// `options.max_lags_used`, `last_lag` from [`default_last_lag`] unless given.
 ///
 /// # Errors
@@ -964,5 +1000,9 @@ impl Problem<'_> {
     }
 }
 
+#[cfg(test)]
+mod model_fit_tests;
+#[cfg(test)]
+mod model_tests;
 #[cfg(test)]
 mod tests;
