@@ -8,7 +8,22 @@
 //! Sample autocovariances at neighbouring lags are strongly correlated, so the fit weights them by
 //! the inverse of their asymptotic covariance (Bartlett's formula) rather than treating them as
 //! independent points; this is what makes the reported standard errors honest.
+//!
+//! Real detectors do not record a plain exponential: the photodiode's parasitic filter, the
+//! frequency dependence of the drag and a camera's exposure all change the autocovariance.
+//! [`TimeDomainModel`] holds the same models the spectral fit has, as autocovariances (closed
+//! forms, or a numerical cosine transform for hydrodynamic drag), and
+//! [`fit_autocovariance_model`] fits fc and D to any of them with Bartlett weights computed from
+//! the model itself; [`variance_factor`] corrects equipartition for the same effects.
 //! The module is pure: plain slices in, plain structs out.
+
+mod bartlett;
+mod model;
+mod model_fit;
+mod quadrature;
+
+pub use model::{TimeDomainModel, variance_factor};
+pub use model_fit::{ModelAcfFit, fit_autocovariance_model};
 
 use nalgebra::{DMatrix, DVector, Matrix2, Vector2};
 use realfft::num_complex::Complex;
@@ -104,9 +119,29 @@ pub enum AcfError {
         /// The significance threshold 3/sqrt(n_samples).
         threshold: f64,
     },
+    /// A field of the [`TimeDomainModel`] is out of its range.
+    #[error("model.{field} = {value} is invalid: it must be {requirement}")]
+    InvalidModel {
+        /// The field, e.g. `exposure_s`.
+        field: &'static str,
+        /// The rejected value.
+        value: f64,
+        /// What the field must be.
+        requirement: &'static str,
+    },
+    /// The starting values of [`fit_autocovariance_model`] are not positive finite numbers.
+    #[error(
+        "starting values fc = {corner_frequency_hz} Hz, D = {diffusion} are not positive finite numbers; start from the spectral fit's corner frequency and diffusion coefficient"
+    )]
+    InvalidStart {
+        /// The starting corner frequency, Hz.
+        corner_frequency_hz: f64,
+        /// The starting diffusion coefficient, signal-unit^2/s.
+        diffusion: f64,
+    },
     /// The Gauss-Newton iteration did not converge.
     #[error(
-        "exponential fit did not converge after {iterations} iterations ({reason}); inspect the autocovariance for drift or non-exponential decay, or set options.last_lag by hand"
+        "autocorrelation fit did not converge after {iterations} iterations ({reason}); inspect the autocovariance for drift or a decay the model does not describe, or set options.last_lag by hand"
     )]
     NotConverged {
         /// Iterations performed.
@@ -116,7 +151,7 @@ pub enum AcfError {
     },
 }
 
-/// Options of [`fit_exponential`].
+/// Options of [`fit_exponential`] and [`fit_autocovariance_model`].
 #[derive(Clone, Debug)]
 pub struct AcfFitOptions {
     /// First lag used (default 1): lag 0 also holds the variance of white detection noise.
@@ -607,6 +642,95 @@ pub fn fit_exponential(
     n_samples: usize,
     options: &AcfFitOptions,
 ) -> Result<ExponentialFit, AcfError> {
+    let LagWindow {
+        lags,
+        data,
+        lag0,
+        lag1,
+    } = lag_window(acov, sample_rate_hz, n_samples, options)?;
+    let problem = Problem {
+        lags: &lags,
+        data: &data,
+        n_samples,
+    };
+    let (amplitude, c, iterations) = problem.solve(lag1, lag0)?;
+    let system = problem
+        .weighted_system(amplitude, c)
+        .ok_or(AcfError::NotConverged {
+            iterations,
+            reason: "weight matrix not positive definite at the solution",
+        })?;
+    let covariance = system
+        .normal_matrix
+        .try_inverse()
+        .ok_or(AcfError::NotConverged {
+            iterations,
+            reason: "singular normal matrix at the solution",
+        })?;
+
+    let dt_s = 1.0 / sample_rate_hz;
+    let ln_c = c.ln();
+    let relaxation_time_s = -dt_s / ln_c;
+    let dtau_dc = dt_s / (c * ln_c * ln_c);
+    let relaxation_time_se_s = dtau_dc.abs() * covariance[(1, 1)].max(0.0).sqrt();
+    let amplitude_se = covariance[(0, 0)].max(0.0).sqrt();
+    // Row of (J^T W J)^-1 J^T W for c: covariance row 1 times B^T, with B = W J.
+    let tau_influence = lags
+        .iter()
+        .enumerate()
+        .map(|(i, &lag)| {
+            let weight = covariance[(1, 0)].mul_add(
+                system.weighted_jacobian[(i, 0)],
+                covariance[(1, 1)] * system.weighted_jacobian[(i, 1)],
+            );
+            (lag, dtau_dc * weight)
+        })
+        .collect();
+    let degrees_of_freedom = lags.len() - 2;
+    if !(relaxation_time_s.is_finite() && relaxation_time_se_s.is_finite()) {
+        return Err(AcfError::NotConverged {
+            iterations,
+            reason: "non-finite relaxation time or standard error",
+        });
+    }
+    Ok(ExponentialFit {
+        relaxation_time_s,
+        relaxation_time_se_s,
+        amplitude,
+        amplitude_se,
+        model: system.model,
+        acov: data,
+        lags,
+        chi_square: system.chi_square,
+        degrees_of_freedom,
+        tau_influence,
+    })
+}
+
+/// The lags a fit uses and the autocovariance there.
+pub(crate) struct LagWindow {
+    /// Lags used, ascending.
+    pub(crate) lags: Vec<usize>,
+    /// The autocovariance at those lags.
+    pub(crate) data: Vec<f64>,
+    /// The autocovariance at lag 0.
+    pub(crate) lag0: f64,
+    /// The autocovariance at lag 1.
+    pub(crate) lag1: f64,
+}
+
+/// The checks and the lag window shared by [`fit_exponential`] and
+/// [`fit_autocovariance_model`]: lags `options.first_lag..=last_lag`, strided to at most
+/// `options.max_lags_used`, `last_lag` from [`default_last_lag`] unless given.
+///
+/// # Errors
+/// As listed at [`fit_exponential`].
+pub(crate) fn lag_window(
+    acov: &[f64],
+    sample_rate_hz: f64,
+    n_samples: usize,
+    options: &AcfFitOptions,
+) -> Result<LagWindow, AcfError> {
     if !(sample_rate_hz.is_finite() && sample_rate_hz > 0.0) {
         return Err(AcfError::InvalidSampleRate {
             value: sample_rate_hz,
@@ -688,62 +812,11 @@ pub fn fit_exponential(
         return Err(too_few(last_lag, lags.len()));
     }
 
-    let problem = Problem {
-        lags: &lags,
-        data: &data,
-        n_samples,
-    };
-    let (amplitude, c, iterations) = problem.solve(lag1, lag0)?;
-    let system = problem
-        .weighted_system(amplitude, c)
-        .ok_or(AcfError::NotConverged {
-            iterations,
-            reason: "weight matrix not positive definite at the solution",
-        })?;
-    let covariance = system
-        .normal_matrix
-        .try_inverse()
-        .ok_or(AcfError::NotConverged {
-            iterations,
-            reason: "singular normal matrix at the solution",
-        })?;
-
-    let dt_s = 1.0 / sample_rate_hz;
-    let ln_c = c.ln();
-    let relaxation_time_s = -dt_s / ln_c;
-    let dtau_dc = dt_s / (c * ln_c * ln_c);
-    let relaxation_time_se_s = dtau_dc.abs() * covariance[(1, 1)].max(0.0).sqrt();
-    let amplitude_se = covariance[(0, 0)].max(0.0).sqrt();
-    // Row of (J^T W J)^-1 J^T W for c: covariance row 1 times B^T, with B = W J.
-    let tau_influence = lags
-        .iter()
-        .enumerate()
-        .map(|(i, &lag)| {
-            let weight = covariance[(1, 0)].mul_add(
-                system.weighted_jacobian[(i, 0)],
-                covariance[(1, 1)] * system.weighted_jacobian[(i, 1)],
-            );
-            (lag, dtau_dc * weight)
-        })
-        .collect();
-    let degrees_of_freedom = lags.len() - 2;
-    if !(relaxation_time_s.is_finite() && relaxation_time_se_s.is_finite()) {
-        return Err(AcfError::NotConverged {
-            iterations,
-            reason: "non-finite relaxation time or standard error",
-        });
-    }
-    Ok(ExponentialFit {
-        relaxation_time_s,
-        relaxation_time_se_s,
-        amplitude,
-        amplitude_se,
-        model: system.model,
-        acov: data,
+    Ok(LagWindow {
         lags,
-        chi_square: system.chi_square,
-        degrees_of_freedom,
-        tau_influence,
+        data,
+        lag0,
+        lag1,
     })
 }
 
@@ -927,5 +1000,9 @@ impl Problem<'_> {
     }
 }
 
+#[cfg(test)]
+mod model_fit_tests;
+#[cfg(test)]
+mod model_tests;
 #[cfg(test)]
 mod tests;
