@@ -9,11 +9,12 @@ use super::consensus;
 use super::covariance;
 use super::propagation::{self, Propagated, PropagationInputs};
 use super::spectral::{self, SpectralStage};
-use super::time_domain::{self, TimeDomainStage};
+use super::time_domain::{self, SpectralAccount, TimeDomainStage};
 use super::{
     AnalysisOptions, AxisCalibration, CalibrationError, MethodFailure, Physics, RunConditions,
     Stiffness,
 };
+use crate::autocorrelation::TimeDomainModel;
 use crate::equipartition::{self, Detrend};
 use crate::estimate::Estimate;
 use crate::findings::{self, FindingInputs, MethodDisagreement};
@@ -60,11 +61,21 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         .as_ref()
         .map(|y| equipartition::detrended(y, options.detrend));
     let time_samples: &[f64] = cleaned.as_deref().unwrap_or(&samples);
+    let account = spectral.fit.as_ref().ok().map(|fit| SpectralAccount {
+        model: TimeDomainModel {
+            sample_rate_hz,
+            filter: spectral.model.decode(&fit.theta).filter,
+            hydro: spectral.model.hydro,
+            exposure_s: None,
+        },
+        corner_frequency_hz: fit.corner_frequency_hz,
+        diffusion: fit.diffusion,
+    });
     let time = time_domain::time_domain_stage(
         name,
         time_samples,
         sample_rate_hz,
-        spectral.fit.as_ref().ok().map(|f| f.corner_frequency_hz),
+        account.as_ref(),
         options,
     );
 
@@ -86,7 +97,10 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
             .unwrap_or(CalibrationError::NoAxes));
     }
     let excluded = exclusions(&spectral, &time, &failures, unit);
-    let stiffness = consensus_stage(&propagated, unit, excluded);
+    // Equipartition corrected by a factor from the spectral fit is no more independent of the
+    // spectrum than equipartition in volts.
+    let equipartition_independent = unit == PositionUnit::Nanometre && time.variance_factor == 1.0;
+    let stiffness = consensus_stage(&propagated, equipartition_independent, excluded);
     let d_theory = physics.thermal_energy_j / drag.drag_kg_per_s.value;
     let failure_texts: Vec<(&str, String)> = failures
         .iter()
@@ -276,9 +290,9 @@ pub(crate) fn exclusions(
     });
     let acf = if let Some(reason) = failed("acf") {
         Some(reason)
-    } else if !unmodelled.is_empty() {
+    } else if !unmodelled.is_empty() && spectral.fit.is_err() {
         Some(format!(
-            "not applicable: its fit assumes a plain exponential decay, but the spectral model holds {}, which changes the autocovariance",
+            "not applicable: the spectral model holds {}, whose parameters come from the spectral fit, which failed",
             unmodelled.join(" and ")
         ))
     } else if acf_p < FIT_REJECTION_P {
@@ -296,9 +310,11 @@ pub(crate) fn exclusions(
             "it converts volts to nanometres with beta from the spectral fit, which was left out"
                 .to_string(),
         )
-    } else if !matches!(spectral.model.filter, crate::spectrum::FilterSetting::None) {
+    } else if !matches!(spectral.model.filter, crate::spectrum::FilterSetting::None)
+        && spectral.fit.is_err()
+    {
         Some(
-            "not applicable: the photodiode filter removes part of the variance the detector reports, and the variance is not corrected for it"
+            "not applicable: the photodiode filter removes part of the variance the detector reports, and without a spectral fit there is no filter to correct it by"
                 .to_string(),
         )
     } else {
@@ -318,21 +334,22 @@ fn chi_square_p_value(chi_square: f64, degrees_of_freedom: usize) -> f64 {
         .unwrap_or(f64::NAN)
 }
 
-/// Combines the estimates not excluded. For volt data equipartition uses the sensitivity from
-/// the spectral fit, so it is not independent of the spectrum and stays out of the consensus
-/// (without being excluded: it still counts in the verdict, its covariance with psd known).
+/// Combines the estimates not excluded. When equipartition rests on the spectral fit (volt data
+/// use its beta; a variance corrected for the detector filter uses its filter and fc) it is not
+/// independent of the spectrum and stays out of the consensus (without being excluded: it still
+/// counts in the verdict).
 /// When every method is excluded, the consensus is computed over all of them for reference and
 /// the verdict says it should not be used.
 pub(crate) fn consensus_stage(
     propagated: &Propagated,
-    unit: PositionUnit,
+    equipartition_independent: bool,
     excluded: [Option<String>; 3],
 ) -> ConsensusStage {
-    let volts = unit == PositionUnit::Volt;
+    let not_independent = !equipartition_independent;
     let present = propagated.stiffness.map(|e| e.is_some());
     let values = propagated.stiffness.map(|e| e.map_or(0.0, |e| e.value));
     let mut include: [bool; 3] = std::array::from_fn(|i| excluded[i].is_none() && present[i]);
-    if volts {
+    if not_independent {
         include[2] = false;
     }
     if !include.contains(&true) {
@@ -358,7 +375,7 @@ pub(crate) fn consensus_stage(
             psd,
             acf,
             equipartition,
-            equipartition_independent: !volts,
+            equipartition_independent,
             consensus: combined.estimate,
             consensus_weights: combined.weights,
             correlation: covariance::correlation(&propagated.covariance),

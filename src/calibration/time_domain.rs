@@ -3,15 +3,36 @@
 //! (equipartition), plus the position histogram the report plots.
 
 use super::{AnalysisOptions, CalibrationError, Histogram};
-use crate::autocorrelation::{self, ExponentialFit};
+use crate::autocorrelation::{self, ExponentialFit, ModelAcfFit, TimeDomainModel};
 use crate::equipartition::{self, VarianceEstimate};
 use std::f64::consts::PI;
+
+/// The spectral fit's account of what the detector adds, for the time-domain methods: the one
+/// model of the axis (photodiode filter with the spectral fit's values, frequency-dependent
+/// drag) and the spectral estimate of (fc Hz, D) to start from.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct SpectralAccount {
+    pub(crate) model: TimeDomainModel,
+    pub(crate) corner_frequency_hz: f64,
+    pub(crate) diffusion: f64,
+}
+
+impl SpectralAccount {
+    /// Whether the model holds more than the plain exponential.
+    pub(crate) fn is_plain(&self) -> bool {
+        self.model.filter.is_none() && self.model.hydro.is_none() && self.model.exposure_s.is_none()
+    }
+}
 
 /// What the time-domain stage found: each method may fail alone.
 #[derive(Clone, Debug)]
 pub(crate) struct TimeDomainStage {
     pub(crate) acf: Result<ExponentialFit, CalibrationError>,
     pub(crate) variance: Result<VarianceEstimate, CalibrationError>,
+    /// The factor C(0) / sigma^2 by which the detector's variance was divided (1 when the
+    /// model leaves the variance as it is); it comes from the spectral fit, so equipartition
+    /// corrected by it is no longer independent of the spectrum.
+    pub(crate) variance_factor: f64,
     /// The position histogram, when the variance exists.
     pub(crate) histogram: Option<Histogram>,
 }
@@ -25,21 +46,49 @@ pub(crate) fn time_domain_stage(
     name: &str,
     samples: &[f64],
     sample_rate_hz: f64,
-    corner_frequency_hint_hz: Option<f64>,
+    account: Option<&SpectralAccount>,
     options: &AnalysisOptions,
 ) -> TimeDomainStage {
-    let tau_guess = corner_frequency_hint_hz
-        .map(|fc| 1.0 / (2.0 * PI * fc))
+    let tau_guess = account
+        .map(|a| 1.0 / (2.0 * PI * a.corner_frequency_hz))
         .unwrap_or_else(|| relaxation_time_from_lag_one(samples, sample_rate_hz));
     let lags_needed =
         ((8.0 * tau_guess * sample_rate_hz).ceil() as usize).clamp(16, (samples.len() / 4).max(16));
     let acov = autocorrelation::autocovariance(samples, lags_needed);
-    let acf = autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &options.acf)
-        .map_err(|e| CalibrationError::Autocorrelation {
-            axis: name.to_string(),
-            cause: e,
-        });
+    // Every model the spectrum has, the autocorrelation fit has: with a filter or drag in the
+    // spectral model, the autocovariance of that model (a sum of exponentials, or the numerical
+    // transform of the hydrodynamic spectrum) is fitted, not a plain exponential.
+    let acf = match account.filter(|a| !a.is_plain()) {
+        Some(a) => autocorrelation::fit_autocovariance_model(
+            &acov,
+            samples.len(),
+            &a.model,
+            &options.acf,
+            a.corner_frequency_hz,
+            a.diffusion,
+        )
+        .map(as_exponential_fit),
+        None => {
+            autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &options.acf)
+        }
+    }
+    .map_err(|e| CalibrationError::Autocorrelation {
+        axis: name.to_string(),
+        cause: e,
+    });
+    // The filter (and a camera's exposure) change the variance the detector reports by the
+    // factor C(0) / sigma^2 of the model; frequency-dependent drag does not (the variance stays
+    // kB T / kappa).
+    let variance_factor = account
+        .map(|a| autocorrelation::variance_factor(&a.model, a.corner_frequency_hz))
+        .filter(|f| f.is_finite() && *f > 0.0)
+        .unwrap_or(1.0);
     let variance = equipartition::variance(samples, sample_rate_hz, options.detrend, &acov)
+        .map(|mut v| {
+            v.variance /= variance_factor;
+            v.variance_se /= variance_factor;
+            v
+        })
         .map_err(|e| CalibrationError::Equipartition {
             axis: name.to_string(),
             cause: e,
@@ -51,7 +100,26 @@ pub(crate) fn time_domain_stage(
     TimeDomainStage {
         acf,
         variance,
+        variance_factor,
         histogram,
+    }
+}
+
+/// The model fit in the shape the rest of the calibration reads: tau = 1 / (2 pi fc) with its
+/// standard error, the amplitude sigma^2 = D / (2 pi fc), the fitted lags and the influence of
+/// each lag on tau.
+fn as_exponential_fit(fit: ModelAcfFit) -> ExponentialFit {
+    ExponentialFit {
+        relaxation_time_s: fit.relaxation_time_s,
+        relaxation_time_se_s: fit.relaxation_time_se_s,
+        amplitude: fit.amplitude,
+        amplitude_se: fit.amplitude_se,
+        lags: fit.lags,
+        acov: fit.acov,
+        model: fit.model,
+        chi_square: fit.chi_square,
+        degrees_of_freedom: fit.degrees_of_freedom,
+        tau_influence: fit.tau_influence,
     }
 }
 
