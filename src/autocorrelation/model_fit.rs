@@ -7,7 +7,7 @@
 //! that both give the same relaxation time and standard error.
 
 use super::model::{LagSeries, SeriesEvaluator, TimeDomainModel};
-use super::{AcfError, AcfFitOptions, LagWindow, lag_window};
+use super::{AcfError, AcfFitOptions, ExponentialFit, LagWindow, lag_window};
 use nalgebra::{Cholesky, DMatrix, DVector, Dyn, Matrix2, Vector2};
 use std::f64::consts::PI;
 
@@ -24,29 +24,13 @@ pub struct ModelAcfFit {
     pub diffusion_se: f64,
     /// Covariance of the estimates of fc and D, Hz signal-unit^2/s.
     pub corner_diffusion_covariance: f64,
-    /// Relaxation time tau = 1/(2 pi fc), s.
-    pub relaxation_time_s: f64,
-    /// Standard error of tau, s.
-    pub relaxation_time_se_s: f64,
-    /// Positional variance sigma^2 = D/(2 pi fc) in signal-unit^2 (not the detector's variance:
-    /// see [`super::variance_factor`]).
-    pub amplitude: f64,
-    /// Standard error of sigma^2, signal-unit^2.
-    pub amplitude_se: f64,
-    /// The lags used in the fit.
-    pub lags: Vec<usize>,
-    /// The sample autocovariance at those lags (signal-unit^2).
-    pub acov: Vec<f64>,
-    /// The fitted expectation `C_model(k) - Var(xbar)` at those lags (signal-unit^2).
-    pub model: Vec<f64>,
-    /// Generalised chi-square `r^T W r` at the fitted parameters.
-    pub chi_square: f64,
-    /// Degrees of freedom of `chi_square`: number of lags minus 2.
-    pub degrees_of_freedom: usize,
-    /// Linearised influence of the data on tau,
-    /// `tau_hat - tau ~= sum_i weight_i (acov_i - E acov_i)`, as (lag, weight in s per
-    /// signal-unit^2), with the meaning of `ExponentialFit::tau_influence`.
-    pub tau_influence: Vec<(usize, f64)>,
+    /// What the calibration reads of every autocorrelation fit, in the shape of
+    /// [`ExponentialFit`]: tau = 1/(2 pi fc) with its se, the positional variance
+    /// sigma^2 = D/(2 pi fc) as `amplitude` (not the detector's variance: see
+    /// [`super::variance_factor`]), the lags, the sample and fitted autocovariance
+    /// (`C_model(k) - Var(xbar)`), the generalised chi-square on lags - 2 degrees of freedom, and
+    /// the influence of each lag on tau.
+    pub decay: ExponentialFit,
 }
 
 /// Upper bound on Gauss-Newton iterations (each re-evaluates the weights).
@@ -127,7 +111,7 @@ pub fn fit_autocovariance_model(
         fit.corner_frequency_se_hz,
         fit.diffusion,
         fit.diffusion_se,
-        fit.relaxation_time_se_s,
+        fit.decay.relaxation_time_se_s,
     ]
     .iter()
     .all(|v| v.is_finite());
@@ -174,16 +158,18 @@ fn assemble(
         diffusion: d,
         diffusion_se: d * var_d.sqrt(),
         corner_diffusion_covariance: fc * d * cov_fd,
-        relaxation_time_s: tau,
-        relaxation_time_se_s: tau * var_fc.sqrt(),
-        amplitude,
-        amplitude_se: amplitude * var_ln_amplitude.sqrt(),
-        lags,
-        acov: data,
-        model: system.model,
-        chi_square: system.chi_square,
-        degrees_of_freedom,
-        tau_influence,
+        decay: ExponentialFit {
+            relaxation_time_s: tau,
+            relaxation_time_se_s: tau * var_fc.sqrt(),
+            amplitude,
+            amplitude_se: amplitude * var_ln_amplitude.sqrt(),
+            lags,
+            acov: data,
+            model: system.model,
+            chi_square: system.chi_square,
+            degrees_of_freedom,
+            tau_influence,
+        },
     }
 }
 

@@ -77,7 +77,11 @@ fn check_recovery(model: &TimeDomainModel, fc: f64) {
         "{model:?}: D {} vs {d}",
         fit.diffusion
     );
-    assert!(fit.chi_square < 1e-10, "chi square {}", fit.chi_square);
+    assert!(
+        fit.decay.chi_square < 1e-10,
+        "chi square {}",
+        fit.decay.chi_square
+    );
     assert!(fit.corner_frequency_se_hz > 0.0 && fit.diffusion_se > 0.0);
 }
 
@@ -146,8 +150,8 @@ fn general_fit_of_ornstein_uhlenbeck_autocovariance_returns_its_relaxation_time_
     let Ok(fit) = fit else {
         panic!("{fit:?}");
     };
-    assert!((fit.relaxation_time_s / tau - 1.0).abs() < 1e-8);
-    assert!((fit.amplitude / var - 1.0).abs() < 1e-8);
+    assert!((fit.decay.relaxation_time_s / tau - 1.0).abs() < 1e-8);
+    assert!((fit.decay.amplitude / var - 1.0).abs() < 1e-8);
     assert!(
         (fit.diffusion / (var / tau) - 1.0).abs() < 1e-8,
         "D = var/tau"
@@ -187,23 +191,33 @@ fn general_fit_of_the_plain_model_agrees_with_fit_exponential() {
         let Ok(new) = fit else {
             panic!("{fit:?}");
         };
-        assert_eq!(new.lags, old.lags);
-        check_relative("tau", new.relaxation_time_s, old.relaxation_time_s, 1e-6);
+        assert_eq!(new.decay.lags, old.lags);
+        check_relative(
+            "tau",
+            new.decay.relaxation_time_s,
+            old.relaxation_time_s,
+            1e-6,
+        );
         check_relative(
             "tau se",
-            new.relaxation_time_se_s,
+            new.decay.relaxation_time_se_s,
             old.relaxation_time_se_s,
             1e-6,
         );
-        check_relative("amplitude", new.amplitude, old.amplitude, 1e-6);
-        check_relative("amplitude se", new.amplitude_se, old.amplitude_se, 1e-6);
-        check_relative("chi square", new.chi_square, old.chi_square, 1e-6);
+        check_relative("amplitude", new.decay.amplitude, old.amplitude, 1e-6);
+        check_relative(
+            "amplitude se",
+            new.decay.amplitude_se,
+            old.amplitude_se,
+            1e-6,
+        );
+        check_relative("chi square", new.decay.chi_square, old.chi_square, 1e-6);
         let largest = old
             .tau_influence
             .iter()
             .map(|w| w.1.abs())
             .fold(0.0, f64::max);
-        for (a, b) in new.tau_influence.iter().zip(&old.tau_influence) {
+        for (a, b) in new.decay.tau_influence.iter().zip(&old.tau_influence) {
             assert_eq!(a.0, b.0);
             assert!(
                 (a.1 - b.1).abs() < 1e-6 * largest,
@@ -230,21 +244,22 @@ fn tau_influence_of_the_filtered_fit_matches_finite_differences() {
         panic!("fit failed");
     };
     let options = AcfFitOptions {
-        last_lag: fit.lags.last().copied(),
+        last_lag: fit.decay.lags.last().copied(),
         ..options
     };
     let largest = fit
+        .decay
         .tau_influence
         .iter()
         .map(|w| w.1.abs())
         .fold(0.0, f64::max);
-    for &(lag, weight) in fit.tau_influence.iter().step_by(3) {
+    for &(lag, weight) in fit.decay.tau_influence.iter().step_by(3) {
         let h = 1e-6;
         let tau_at = |delta: f64| {
             let mut perturbed = acov.clone();
             perturbed[lag] += delta;
             fit_autocovariance_model(&perturbed, n_samples, &model, &options, fc, d)
-                .map(|f| f.relaxation_time_s)
+                .map(|f| f.decay.relaxation_time_s)
                 .unwrap_or(f64::NAN)
         };
         let numeric = (tau_at(h) - tau_at(-h)) / (2.0 * h);
@@ -347,7 +362,7 @@ fn run_ensemble(
         ensemble.se.push(fit.corner_frequency_se_hz);
         ensemble
             .chi_per_dof
-            .push(fit.chi_square / fit.degrees_of_freedom as f64);
+            .push(fit.decay.chi_square / fit.decay.degrees_of_freedom as f64);
         let old = fit_exponential(&acov, fs, n_samples, &options)
             .map_or(f64::NAN, |old| 1.0 / (2.0 * PI * old.relaxation_time_s));
         ensemble.old_fc.push(old);

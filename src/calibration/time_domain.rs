@@ -3,7 +3,7 @@
 //! (equipartition), plus the position histogram the report plots.
 
 use super::{AnalysisOptions, CalibrationError, Histogram};
-use crate::autocorrelation::{self, ExponentialFit, ModelAcfFit, TimeDomainModel};
+use crate::autocorrelation::{self, ExponentialFit, TimeDomainModel};
 use crate::equipartition::{self, VarianceEstimate};
 use std::f64::consts::PI;
 
@@ -67,7 +67,7 @@ pub(crate) fn time_domain_stage(
             a.corner_frequency_hz,
             a.diffusion,
         )
-        .map(as_exponential_fit),
+        .map(|fit| fit.decay),
         None => {
             autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &options.acf)
         }
@@ -102,24 +102,6 @@ pub(crate) fn time_domain_stage(
         variance,
         variance_factor,
         histogram,
-    }
-}
-
-/// The model fit in the shape the rest of the calibration reads: tau = 1 / (2 pi fc) with its
-/// standard error, the amplitude sigma^2 = D / (2 pi fc), the fitted lags and the influence of
-/// each lag on tau.
-fn as_exponential_fit(fit: ModelAcfFit) -> ExponentialFit {
-    ExponentialFit {
-        relaxation_time_s: fit.relaxation_time_s,
-        relaxation_time_se_s: fit.relaxation_time_se_s,
-        amplitude: fit.amplitude,
-        amplitude_se: fit.amplitude_se,
-        lags: fit.lags,
-        acov: fit.acov,
-        model: fit.model,
-        chi_square: fit.chi_square,
-        degrees_of_freedom: fit.degrees_of_freedom,
-        tau_influence: fit.tau_influence,
     }
 }
 
