@@ -51,6 +51,9 @@ pub struct RunConditions {
     pub height_se_m: f64,
     /// Bead density, kg/m^3 (enters only the hydrodynamic model).
     pub bead_density_kg_per_m3: f64,
+    /// Density of the medium, kg/m^3 (enters only the hydrodynamic model); `None` takes water's
+    /// at the temperature.
+    pub medium_density_kg_per_m3: Option<f64>,
 }
 
 impl RunConditions {
@@ -65,9 +68,19 @@ impl RunConditions {
             height_m: None,
             height_se_m: 0.0,
             bead_density_kg_per_m3: drag::POLYSTYRENE_DENSITY_KG_PER_M3,
+            medium_density_kg_per_m3: None,
         }
     }
 }
+
+/// The version of the models and defaults behind a calibration. Raise it whenever a change of a
+/// model or of a default can change the result for the same file and settings: it is recorded
+/// in every result (`software.model_version`) and hashed into the service's idempotency key, so
+/// a retried upload never returns a result computed under older models.
+///
+/// 1: until frequency-dependent drag became the default of the run settings;
+/// 2: frequency-dependent drag on by default (`hydrodynamics`), bead material, medium density.
+pub const MODEL_VERSION: u32 = 2;
 
 /// How the record is analysed.
 #[derive(Clone, Debug)]
@@ -79,7 +92,9 @@ pub struct AnalysisOptions {
     pub n_windows: Option<usize>,
     /// Detector filter model.
     pub filter: FilterSetting,
-    /// Include frequency-dependent drag in the spectral model.
+    /// Include frequency-dependent drag in the axis's model (every method). The core's default
+    /// is the plain model (off); the run settings turn it on unless told otherwise (their
+    /// table, `settings::SPECS`, holds the user-facing default).
     pub hydrodynamics: bool,
     /// What equipartition removes before taking the variance.
     pub detrend: Detrend,
@@ -163,7 +178,7 @@ pub struct Physics {
     pub thermal_energy_j: f64,
     /// Bulk Stokes drag 6 pi eta R, kg/s, with its standard error from the inputs.
     pub stokes_drag_kg_per_s: Estimate,
-    /// Water density used for the hydrodynamic terms, kg/m^3.
+    /// Density of the medium used for the hydrodynamic terms (given, or water's), kg/m^3.
     pub fluid_density_kg_per_m3: f64,
 }
 
@@ -319,10 +334,16 @@ pub fn physics(conditions: &RunConditions) -> Result<Physics, CalibrationError> 
         });
     }
     let viscosity = viscosity_at(conditions, conditions.temperature_c)?;
-    let fluid_density = water::water_density_kg_per_m3(conditions.temperature_c.clamp(
-        water::WATER_MIN_TEMPERATURE_C,
-        water::WATER_MAX_TEMPERATURE_C,
-    ))?;
+    let fluid_density = match conditions.medium_density_kg_per_m3 {
+        Some(rho) => {
+            check_positive("medium_density_kg_per_m3", rho)?;
+            rho
+        }
+        None => water::water_density_kg_per_m3(conditions.temperature_c.clamp(
+            water::WATER_MIN_TEMPERATURE_C,
+            water::WATER_MAX_TEMPERATURE_C,
+        ))?,
+    };
     let radius = conditions.bead_diameter_m / 2.0;
     let gamma0 = drag::stokes_drag_kg_per_s(viscosity, radius);
     let rel_d = conditions.bead_diameter_se_m / conditions.bead_diameter_m;

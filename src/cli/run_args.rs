@@ -4,7 +4,7 @@
 //! flag), and the values gathered through `Settings::apply`, the same parser as the HTTP
 //! fields. Ranges are checked later by `Settings::resolve`, as for an upload.
 
-use crate::settings::{Flag, SPECS, SettingSpec, Settings};
+use crate::settings::{Flag, Kind, SPECS, SettingSpec, Settings};
 use clap::error::ErrorKind;
 use clap::{Arg, ArgAction, ArgMatches, Args, Command, FromArgMatches};
 
@@ -43,19 +43,27 @@ fn long_help(spec: &SettingSpec) -> String {
     }
 }
 
-/// The clap argument of a row; its id is the setting's key.
+/// The clap argument of a row; its id is the setting's key. A boolean row's flag given bare
+/// means true, so scripts written when such a flag was a switch (`--hydrodynamics`) still run.
 fn arg(spec: &'static SettingSpec) -> Arg {
     let arg = Arg::new(spec.key)
         .help(short_help(spec))
         .long_help(long_help(spec));
     match spec.flag {
-        Flag::Value { long, value_name } => arg
-            .long(long)
-            .value_name(value_name)
-            .required(spec.required())
-            .allow_negative_numbers(true)
-            .action(ArgAction::Set)
-            .value_parser(move |text: &str| spec.kind.parse(text).map(|_| text.to_string())),
+        Flag::Value { long, value_name } => {
+            let arg = arg
+                .long(long)
+                .value_name(value_name)
+                .required(spec.required())
+                .allow_negative_numbers(true)
+                .action(ArgAction::Set)
+                .value_parser(move |text: &str| spec.kind.parse(text).map(|_| text.to_string()));
+            if spec.kind == Kind::Boolean {
+                arg.num_args(0..=1).default_missing_value("true")
+            } else {
+                arg
+            }
+        }
         Flag::Switch { long, .. } => arg.long(long).action(ArgAction::SetTrue),
     }
 }

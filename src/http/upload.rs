@@ -8,7 +8,7 @@
 //!
 //! The recording streams to a temporary file while its SHA-256 is taken, so it is never held
 //! twice in memory; the file is read back once for parsing. The idempotency key (SHA-256 of the
-//! file hash, the canonical settings and the labels) finds a retried upload's calibration before
+//! file hash, the effective settings, the labels and the model version) finds a retried upload's calibration before
 //! any work. The calibration runs on the blocking pool behind the admission gate; only when it
 //! succeeds are the blob and the rows stored, so a failed upload leaves nothing behind.
 
@@ -366,9 +366,17 @@ fn content_type(headers: &HeaderMap) -> Result<Option<String>, AppError> {
         .transpose()
 }
 
-/// The idempotency key: SHA-256 over the file hash, canonical settings and labels.
-fn idempotency_key(sha256: &str, settings: &[(String, String)], labels: &Labels) -> String {
-    let text = serde_json::to_string(&(sha256, settings, labels)).unwrap_or_default();
+/// The idempotency key: SHA-256 over the file hash, the effective settings (given ones and the
+/// stated defaults, `Settings::effective_pairs`), the labels and the model version, so a retry
+/// after a default or a model changed is a new calibration.
+fn idempotency_key(
+    sha256: &str,
+    effective: &[(String, String)],
+    labels: &Labels,
+    model_version: u32,
+) -> String {
+    let text =
+        serde_json::to_string(&(sha256, effective, labels, model_version)).unwrap_or_default();
     crate::store::sha256_text(&text)
 }
 
@@ -497,7 +505,17 @@ pub(crate) async fn create(
         .into_iter()
         .map(|(k, v)| (k.to_string(), v))
         .collect();
-    let key = idempotency_key(&staged.sha256, &canonical, &labels);
+    let effective: Vec<(String, String)> = settings
+        .effective_pairs()
+        .into_iter()
+        .map(|(k, v)| (k.to_string(), v))
+        .collect();
+    let key = idempotency_key(
+        &staged.sha256,
+        &effective,
+        &labels,
+        crate::calibration::MODEL_VERSION,
+    );
     if let Some(existing) = state.store().find_by_key(&lab, &key).await? {
         metrics::counter!("trapwise_calibrations_total", "outcome" => "replayed").increment(1);
         return document_response(

@@ -47,3 +47,31 @@ fn a_field_outside_the_table_and_the_labels_is_refused_by_name() {
         other => panic!("accepted: {other:?}"),
     }
 }
+
+fn key_of(fields: &[(&str, &str)], model_version: u32) -> String {
+    let mut pairs = labels();
+    pairs.extend(fields.iter().map(|(k, v)| (k.to_string(), v.to_string())));
+    let (settings, labels) = split_fields(pairs, Some("run.csv".into())).expect("accepted");
+    let effective: Vec<(String, String)> = settings
+        .effective_pairs()
+        .into_iter()
+        .map(|(k, v)| (k.to_string(), v))
+        .collect();
+    super::idempotency_key(&"ab".repeat(32), &effective, &labels, model_version)
+}
+
+#[test]
+fn the_idempotency_key_covers_the_effective_settings_and_the_model_version() {
+    let base = [("bead_diameter_um", "1"), ("temperature_c", "25")];
+    let plain = key_of(&base, 2);
+    // A stated default sent explicitly is the same calibration as leaving it out...
+    let with_default = key_of(&[base[0], base[1], ("hydrodynamics", "on")], 2);
+    assert_eq!(plain, with_default);
+    // ...a value other than the default is not, and neither is the same upload under another
+    // model version (a retry after an upgrade that changed a default is a new calibration).
+    assert_ne!(
+        plain,
+        key_of(&[base[0], base[1], ("hydrodynamics", "off")], 2)
+    );
+    assert_ne!(plain, key_of(&base, 1));
+}

@@ -64,6 +64,15 @@ pub struct CalibrationReport {
 pub struct Software {
     pub name: String,
     pub version: String,
+    /// The version of the calibration's models and defaults (`calibration::MODEL_VERSION`):
+    /// results computed under different model versions may differ for the same file and
+    /// settings. Documents stored before the field existed were computed under version 1.
+    #[serde(default = "model_version_one")]
+    pub model_version: u32,
+}
+
+fn model_version_one() -> u32 {
+    1
 }
 
 /// What was read.
@@ -94,6 +103,10 @@ pub struct ConditionsInfo {
     pub height_um: Option<f64>,
     pub height_se_um: f64,
     pub bead_density_kg_per_m3: f64,
+    /// Density of the medium in the hydrodynamic model, kg/m^3 (water's at the temperature
+    /// unless given); absent from documents stored before it was recorded.
+    #[serde(default)]
+    pub medium_density_kg_per_m3: Option<f64>,
 }
 
 /// The analysis options used.
@@ -334,6 +347,7 @@ pub fn build(
         software: Software {
             name: "trapwise".into(),
             version: env!("CARGO_PKG_VERSION").into(),
+            model_version: crate::calibration::MODEL_VERSION,
         },
         input: InputInfo {
             file_name: facts.file_name.clone(),
@@ -359,6 +373,7 @@ pub fn build(
             height_um: conditions.height_m.map(|h| h * 1e6),
             height_se_um: conditions.height_se_m * 1e6,
             bead_density_kg_per_m3: conditions.bead_density_kg_per_m3,
+            medium_density_kg_per_m3: Some(phys.fluid_density_kg_per_m3),
         },
         options: OptionsInfo {
             windows: options.n_windows,

@@ -10,6 +10,7 @@
 pub mod spec;
 
 use crate::calibration::{AnalysisOptions, RunConditions};
+use crate::drag;
 use crate::equipartition::Detrend;
 use crate::ingest::{DEFAULT_TIME_TOLERANCE, Format, IngestOptions};
 use crate::recording::PositionUnit;
@@ -63,6 +64,15 @@ pub fn parse_unit(value: &str) -> Option<PositionUnit> {
 }
 
 /// The detrending a `detrend` choice names.
+/// The density of a bead material, kg/m^3.
+fn parse_bead_material(name: &str) -> Option<f64> {
+    match spec::BEAD_MATERIAL_CHOICES.find(name)? {
+        "polystyrene" => Some(drag::POLYSTYRENE_DENSITY_KG_PER_M3),
+        "silica" => Some(drag::SILICA_DENSITY_KG_PER_M3),
+        _ => None,
+    }
+}
+
 fn parse_detrend(name: &str) -> Option<Detrend> {
     match spec::DETREND_CHOICES.find(name)? {
         "mean" => Some(Detrend::Mean),
@@ -101,6 +111,24 @@ impl Settings {
         self.values.iter().map(|(k, v)| (*k, v.text())).collect()
     }
 
+    /// The canonical text pairs of the given settings together with the stated default of every
+    /// row that has one (`Absent::Default`) and was not given, sorted by key: what a calibration
+    /// is computed with, so that a change of a default changes this list.
+    pub fn effective_pairs(&self) -> Vec<(&'static str, String)> {
+        let mut pairs = self.to_pairs();
+        for s in SPECS {
+            if let (Absent::Default(text), false) = (s.absent, self.values.contains_key(s.key)) {
+                let canonical = s
+                    .kind
+                    .parse(text)
+                    .map_or_else(|_| text.to_string(), |v| v.text());
+                pairs.push((s.key, canonical));
+            }
+        }
+        pairs.sort_by(|a, b| a.0.cmp(b.0));
+        pairs
+    }
+
     fn number(&self, key: &str) -> Option<f64> {
         match self.values.get(key) {
             Some(Value::Number(x)) => Some(*x),
@@ -120,6 +148,18 @@ impl Settings {
             Some(Value::Boolean(b)) => Some(*b),
             _ => None,
         }
+    }
+
+    /// A boolean setting, or the default its row states when it is absent (the table is the one
+    /// place a user-facing default is written).
+    fn boolean_or_default(&self, key: &str) -> bool {
+        self.boolean(key).unwrap_or_else(|| match spec::spec(key) {
+            Some(s) => match s.absent {
+                Absent::Default(text) => s.kind.parse(text) == Ok(Value::Boolean(true)),
+                _ => false,
+            },
+            None => false,
+        })
     }
 
     fn filter(&self, key: &str) -> Option<FilterSetting> {
@@ -207,9 +247,13 @@ impl Settings {
         conditions.viscosity_pa_s = self.number("viscosity_mpa_s").map(|v| v * 1e-3);
         conditions.height_m = self.number("height_um").map(|h| h * 1e-6);
         conditions.height_se_m = self.number("height_se_um").unwrap_or(0.0) * 1e-6;
+        if let Some(rho) = self.choice("bead_material", parse_bead_material)? {
+            conditions.bead_density_kg_per_m3 = rho;
+        }
         if let Some(rho) = self.number("bead_density_kg_per_m3") {
             conditions.bead_density_kg_per_m3 = rho;
         }
+        conditions.medium_density_kg_per_m3 = self.number("medium_density_kg_per_m3");
         let mut analysis = AnalysisOptions::default();
         analysis.fit_range.f_min_hz = self.number("fit_min_hz");
         analysis.fit_range.f_max_hz = self.number("fit_max_hz");
@@ -219,9 +263,7 @@ impl Settings {
         if let Some(f) = self.filter("detector_filter") {
             analysis.filter = f;
         }
-        if let Some(h) = self.boolean("hydrodynamics") {
-            analysis.hydrodynamics = h;
-        }
+        analysis.hydrodynamics = self.boolean_or_default("hydrodynamics");
         if let Some(d) = self.choice("detrend", parse_detrend)? {
             analysis.detrend = d;
         }

@@ -343,6 +343,16 @@ pub const DETREND_CHOICES: Choices = Choices {
     aliases: &[],
 };
 
+/// Materials of beads, for their density (`crate::drag` holds the values and their sources).
+pub const BEAD_MATERIAL_CHOICES: Choices = Choices {
+    names: &["polystyrene", "silica"],
+    aliases: &[
+        ("ps", "polystyrene"),
+        ("sio2", "silica"),
+        ("glass", "silica"),
+    ],
+};
+
 /// Every run setting, in the order they are listed to people. The order also fixes `KEYS`
 /// and the message that lists the known keys.
 pub const SPECS: &[SettingSpec] = &[
@@ -444,16 +454,44 @@ pub const SPECS: &[SettingSpec] = &[
         },
     },
     SettingSpec {
+        key: "bead_material",
+        label: "Bead material",
+        kind: Kind::Choice(&BEAD_MATERIAL_CHOICES),
+        unit: "",
+        help: "Sets the bead density (polystyrene 1050, silica 2000 kg/m³) for the \
+               frequency-dependent drag; a bead density given as well wins.",
+        absent: Absent::Default("polystyrene"),
+        example: "silica",
+        flag: Flag::Value {
+            long: "bead-material",
+            value_name: "NAME",
+        },
+    },
+    SettingSpec {
         key: "bead_density_kg_per_m3",
         label: "Bead density",
         kind: Kind::Number(Range::Positive),
         unit: "kg/m³",
         help: "Density of the bead material; used only by the frequency-dependent drag \
                (hydrodynamics).",
-        absent: Absent::Default("1050"),
-        example: "2200",
+        absent: Absent::Means("from the bead material"),
+        example: "1500",
         flag: Flag::Value {
             long: "bead-density",
+            value_name: "KG_M3",
+        },
+    },
+    SettingSpec {
+        key: "medium_density_kg_per_m3",
+        label: "Medium density",
+        kind: Kind::Number(Range::Positive),
+        unit: "kg/m³",
+        help: "Density of the medium; used only by the frequency-dependent drag. Give it with \
+               the viscosity when the medium is not plain water.",
+        absent: Absent::Means("water at the given temperature"),
+        example: "1100",
+        flag: Flag::Value {
+            long: "medium-density",
             value_name: "KG_M3",
         },
     },
@@ -597,13 +635,14 @@ pub const SPECS: &[SettingSpec] = &[
         label: "Frequency-dependent drag",
         kind: Kind::Boolean,
         unit: "",
-        help: "Model the frequency dependence of the drag (matters for beads of 1 µm and \
-               larger at kHz).",
-        absent: Absent::Default("false"),
-        example: "true",
-        flag: Flag::Switch {
+        help: "Model the frequency dependence of the drag on a bead in liquid (Stokes; \
+               Berg-Sørensen & Flyvbjerg 2004): on or off; off only for data known to lack it, \
+               such as simulations of the plain Ornstein-Uhlenbeck process.",
+        absent: Absent::Default("true"),
+        example: "off",
+        flag: Flag::Value {
             long: "hydrodynamics",
-            sets: "true",
+            value_name: "on|off",
         },
     },
     SettingSpec {

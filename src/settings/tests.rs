@@ -383,3 +383,68 @@ fn resolve_converts_to_si_units() {
         )
     );
 }
+
+#[test]
+fn effective_pairs_add_every_stated_default_that_was_not_given() {
+    let s = settings(&[("bead_diameter_um", "1"), ("hydrodynamics", "off")]);
+    let pairs = s.effective_pairs();
+    let get = |key: &str| {
+        pairs
+            .iter()
+            .find(|(k, _)| *k == key)
+            .map(|(_, v)| v.as_str())
+    };
+    assert_eq!(get("hydrodynamics"), Some("false"), "given values win");
+    assert_eq!(get("bead_material"), Some("polystyrene"));
+    assert_eq!(get("detrend"), Some("mean"));
+    assert_eq!(get("bead_diameter_um"), Some("1"));
+    // Rows without a single default value stay out (the viscosity is water's unless given).
+    assert_eq!(get("viscosity_mpa_s"), None);
+    let sorted = pairs.windows(2).all(|w| w[0].0 < w[1].0);
+    assert!(sorted, "{pairs:?}");
+    let n_defaults = SPECS
+        .iter()
+        .filter(|s| matches!(s.absent, Absent::Default(_)))
+        .count();
+    assert_eq!(pairs.len(), n_defaults + 1, "{pairs:?}");
+}
+
+#[test]
+fn frequency_dependent_drag_is_on_unless_turned_off() {
+    let base = [("bead_diameter_um", "1"), ("temperature_c", "25")];
+    let resolved = |extra: &[(&str, &str)]| {
+        let mut all = base.to_vec();
+        all.extend_from_slice(extra);
+        settings(&all).resolve().expect("resolves").2.hydrodynamics
+    };
+    assert!(resolved(&[]));
+    assert!(resolved(&[("hydrodynamics", "on")]));
+    assert!(!resolved(&[("hydrodynamics", "off")]));
+}
+
+#[test]
+fn a_given_bead_density_wins_over_the_material_and_the_medium_density_is_passed_on() {
+    let conditions = |extra: &[(&str, &str)]| {
+        let mut all = vec![("bead_diameter_um", "1"), ("temperature_c", "25")];
+        all.extend_from_slice(extra);
+        settings(&all).resolve().expect("resolves").1
+    };
+    assert_eq!(
+        conditions(&[]).bead_density_kg_per_m3,
+        crate::drag::POLYSTYRENE_DENSITY_KG_PER_M3
+    );
+    assert_eq!(
+        conditions(&[("bead_material", "silica")]).bead_density_kg_per_m3,
+        crate::drag::SILICA_DENSITY_KG_PER_M3
+    );
+    let both = conditions(&[
+        ("bead_material", "silica"),
+        ("bead_density_kg_per_m3", "1900"),
+    ]);
+    assert_eq!(both.bead_density_kg_per_m3, 1900.0);
+    assert_eq!(conditions(&[]).medium_density_kg_per_m3, None);
+    assert_eq!(
+        conditions(&[("medium_density_kg_per_m3", "1100")]).medium_density_kg_per_m3,
+        Some(1100.0)
+    );
+}

@@ -169,6 +169,9 @@ fn strict_mode_fails_a_calibration_whose_methods_disagree() {
         "1",
         "--temperature",
         "25",
+        // The record is of the plain Ornstein-Uhlenbeck process (no fluid memory).
+        "--hydrodynamics",
+        "off",
         "--viscosity",
         "1.3",
     ];
@@ -181,7 +184,7 @@ fn strict_mode_fails_a_calibration_whose_methods_disagree() {
     strict.push("--strict");
     let out = run(&strict, dir.path());
     assert_eq!(out.status.code(), Some(5), "{}", text(&out.stdout));
-    let good = run(&[&args[..6], &["--strict"]].concat(), dir.path());
+    let good = run(&[&args[..8], &["--strict"]].concat(), dir.path());
     assert_eq!(good.status.code(), Some(0), "{}", text(&good.stdout));
 }
 
