@@ -81,8 +81,12 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     );
     // Low-frequency drift: equipartition loses the drift's share of the variance, and the
     // shifts it caused are measured for the finding (see `drift`).
-    let mut drift_account =
-        drift::drift_account(&spectral, &spectral.periodogram, time_samples, sample_rate_hz);
+    let mut drift_account = drift::drift_account(
+        &spectral,
+        &spectral.periodogram,
+        time_samples,
+        sample_rate_hz,
+    );
     if let Some(account) = drift_account.as_mut() {
         drift::correct_variance(&mut time, account);
     }
@@ -120,9 +124,8 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     // Equipartition corrected by a factor from the spectral fit (or by the drift's share of the
     // variance computed from it) is no more independent of the spectrum than equipartition in
     // volts.
-    let equipartition_independent = unit == PositionUnit::Nanometre
-        && time.variance_factor == 1.0
-        && drift_account.is_none();
+    let equipartition_independent =
+        unit == PositionUnit::Nanometre && time.variance_factor == 1.0 && drift_account.is_none();
     let drift_evidence = drift_account.as_ref().map(|a| {
         drift::evidence(
             a,

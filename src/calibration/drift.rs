@@ -204,7 +204,11 @@ pub(crate) fn correct_variance(time: &mut TimeDomainStage, account: &mut DriftAc
 /// the power-spectrum stiffness by the change of fc when the 1/f term was added (kappa = 2 pi
 /// gamma fc, so the relative shift is fc's), equipartition by the share removed from the
 /// variance (kappa = kB T / variance).
-pub(crate) fn shifts(account: &DriftAccount, spectral: &SpectralStage, time: &TimeDomainStage) -> Vec<(&'static str, f64)> {
+pub(crate) fn shifts(
+    account: &DriftAccount,
+    spectral: &SpectralStage,
+    time: &TimeDomainStage,
+) -> Vec<(&'static str, f64)> {
     let mut out = Vec::new();
     if let (Some(test), Ok(fit)) = (&account.flicker, &spectral.fit) {
         let z = (fit.corner_frequency_hz - test.plain_corner_frequency_hz).abs()
@@ -221,7 +225,10 @@ pub(crate) fn shifts(account: &DriftAccount, spectral: &SpectralStage, time: &Ti
 /// term was adopted (its autocovariance falls only logarithmically across the lag window), or
 /// when the drift moved equipartition by more than its standard error (the drift then adds
 /// about as much, relative to its error, to every lag the fit reads).
-pub(crate) fn acf_exclusion(account: &DriftAccount, shifts: &[(&'static str, f64)]) -> Option<String> {
+pub(crate) fn acf_exclusion(
+    account: &DriftAccount,
+    shifts: &[(&'static str, f64)],
+) -> Option<String> {
     let moved_variance = shifts
         .iter()
         .any(|(method, z)| *method == "equipartition" && *z > 1.0);

@@ -1018,7 +1018,11 @@ fn the_flicker_term_recovers_fc_d_and_the_drift_from_the_exact_spectrum() {
             term.density_at_1_hz
         );
         assert!(term.density_at_1_hz_se > 0.0);
-        assert_eq!(fit.theta.len(), 2, "theta keeps the model's parameters only");
+        assert_eq!(
+            fit.theta.len(),
+            2,
+            "theta keeps the model's parameters only"
+        );
         assert_eq!(fit.covariance.len(), 2);
         // The model seen by the findings includes the term.
         check_close(
