@@ -6,7 +6,6 @@ use crate::drag;
 use crate::estimate::Estimate;
 use crate::recording::PositionUnit;
 use crate::spectrum::{NarrowPeak, Periodogram, SpectrumFit};
-use statrs::distribution::{ContinuousCDF, Gamma};
 
 /// How much a finding matters.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
@@ -86,6 +85,26 @@ pub struct FindingInputs<'a> {
     /// Why the power-spectrum method was left out of the consensus, if it was (beta in volts
     /// rests on the same fit).
     pub spectrum_excluded: Option<&'a str>,
+    /// What the calibration found of low-frequency drift, `None` when it found none.
+    pub drift: Option<&'a DriftEvidence>,
+}
+
+/// Low-frequency drift as the calibration measured and allowed for it, in plain numbers.
+#[derive(Clone, Debug, PartialEq)]
+pub struct DriftEvidence {
+    /// Mean ratio of the periodogram to the fitted model below the fit range, when that excess
+    /// was significant.
+    pub below_range_ratio: Option<f64>,
+    /// The spectral fit's 1/f term, its density at 1 Hz (signal-units^2/Hz), when adopted.
+    pub flicker_density_at_1_hz: Option<f64>,
+    /// The likelihood-ratio test's p-value for that term, when adopted.
+    pub flicker_p_value: Option<f64>,
+    /// The drift's share of the record's variance, removed from equipartition.
+    pub variance_fraction: Option<f64>,
+    /// How far the drift moved each estimate (method, shift in its standard errors).
+    pub shifts: Vec<(&'static str, f64)>,
+    /// Whether the autocorrelation method was left out because of the drift.
+    pub acf_left_out: bool,
 }
 
 /// Runs every check on one axis.
@@ -246,51 +265,61 @@ fn saturation(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
     }
 }
 
-/// Excess power below the fit range: the mean periodogram over those bins relative to the
-/// fitted model, tested against the Gamma distribution of a mean of n exponential ordinates.
+/// Low-frequency drift (found by the calibration's tests, see `DriftEvidence`): a warning when
+/// it moved an estimate by more than that estimate's standard error, or took the
+/// autocorrelation method out; otherwise worth knowing. The remedy is already applied, and the
+/// message says which one: the spectral fit's 1/f term, equipartition corrected by the drift's
+/// share of the variance (and out of the consensus), the autocorrelation method left out.
 fn drift(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
-    let Some(fit) = inp.spectrum else {
+    let Some(d) = inp.drift else {
         return;
     };
-    let pg = inp.periodogram;
-    let df = pg.resolution_hz();
-    let k_hi = ((fit.f_min_hz / df).floor() as usize).min(pg.psd.len());
-    if k_hi < 2 {
-        return;
-    }
-    let mut ratio_sum = 0.0;
-    let mut n = 0usize;
-    for (k, p) in pg.psd.iter().enumerate().take(k_hi).skip(1) {
-        let s = fit.model_psd_at(k as f64 * df);
-        if s > 0.0 {
-            ratio_sum += p / s;
-            n += 1;
-        }
-    }
-    if n == 0 {
-        return;
-    }
-    let n_avg = (n * pg.n_windows) as f64;
-    let ratio = ratio_sum / n as f64;
-    let Ok(gamma) = Gamma::new(n_avg, n_avg) else {
-        return;
+    let moved: Vec<String> = d
+        .shifts
+        .iter()
+        .filter(|(_, z)| *z > 1.0)
+        .map(|(method, z)| format!("{method} by {z:.1} standard errors"))
+        .collect();
+    let severity = if moved.is_empty() && !d.acf_left_out {
+        Severity::Info
+    } else {
+        Severity::Warning
     };
-    let p_value = gamma.sf(ratio);
-    if ratio > 2.0 && p_value < 1e-3 {
-        let severity = if ratio > 10.0 {
-            Severity::Warning
-        } else {
-            Severity::Info
-        };
-        out.push(finding(
-            "low-frequency-drift",
-            severity,
-            format!(
-                "axis {}: below {:.1} Hz the spectrum holds {:.1} times the thermal power; drift or stage motion is present (left out of the spectral fit, but it inflates the variance and the autocorrelation): let the sample settle, or use linear detrending",
-                inp.axis, fit.f_min_hz, ratio
-            ),
+    let mut what = Vec::new();
+    if let Some(ratio) = d.below_range_ratio {
+        what.push(format!(
+            "below the fit range the spectrum holds {ratio:.1} times the thermal power"
         ));
     }
+    if let (Some(a), Some(p)) = (d.flicker_density_at_1_hz, d.flicker_p_value) {
+        what.push(format!(
+            "the spectral fit carries a 1/f term of {a:.3e} {u}^2/Hz at 1 Hz (likelihood-ratio test p = {p:.1e})",
+            u = inp.unit.suffix()
+        ));
+    }
+    if let Some(fraction) = d.variance_fraction {
+        what.push(format!(
+            "the drift holds {:.1} % of the variance, which equipartition removes (equipartition then rests on the spectral fit and stays out of the consensus)",
+            100.0 * fraction
+        ));
+    }
+    if d.acf_left_out {
+        what.push("the autocorrelation method is left out".to_string());
+    }
+    let effect = if moved.is_empty() {
+        "it moved no estimate by more than its standard error".to_string()
+    } else {
+        format!("it moved {}", moved.join(" and "))
+    };
+    out.push(finding(
+        "low-frequency-drift",
+        severity,
+        format!(
+            "axis {}: low-frequency drift is present: {}; {effect}. Use the consensus as reported (it rests on the methods that allow for the drift); a linear detrend does not remove 1/f drift. To keep every method, reduce the drift at its source and record again",
+            inp.axis,
+            what.join("; ")
+        ),
+    ));
 }
 
 fn peaks(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {

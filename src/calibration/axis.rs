@@ -7,6 +7,7 @@
 use super::conditions::{self, AxisDrag};
 use super::consensus;
 use super::covariance;
+use super::drift;
 use super::propagation::{self, Propagated, PropagationInputs};
 use super::spectral::{self, SpectralStage};
 use super::time_domain::{self, SpectralAccount, TimeDomainStage};
@@ -71,13 +72,28 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         corner_frequency_hz: fit.corner_frequency_hz,
         diffusion: fit.diffusion,
     });
-    let time = time_domain::time_domain_stage(
+    let mut time = time_domain::time_domain_stage(
         name,
         time_samples,
         sample_rate_hz,
         account.as_ref(),
         options,
     );
+    // Low-frequency drift: equipartition loses the drift's share of the variance, and the
+    // shifts it caused are measured for the finding (see `drift`).
+    let mut drift_account = drift::drift_account(
+        &spectral,
+        &spectral.periodogram,
+        time_samples,
+        sample_rate_hz,
+    );
+    if let Some(account) = drift_account.as_mut() {
+        drift::correct_variance(&mut time, account);
+    }
+    let drift_shifts = drift_account
+        .as_ref()
+        .map(|a| drift::shifts(a, &spectral, &time))
+        .unwrap_or_default();
 
     let propagated = propagation::propagate(&propagation_inputs(
         &spectral,
@@ -96,10 +112,28 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
             .map(|f| f.error)
             .unwrap_or(CalibrationError::NoAxes));
     }
-    let excluded = exclusions(&spectral, &time, &failures, unit);
-    // Equipartition corrected by a factor from the spectral fit is no more independent of the
-    // spectrum than equipartition in volts.
-    let equipartition_independent = unit == PositionUnit::Nanometre && time.variance_factor == 1.0;
+    let mut excluded = exclusions(&spectral, &time, &failures, unit);
+    let drift_acf_reason = drift_account
+        .as_ref()
+        .and_then(|a| drift::acf_exclusion(a, &drift_shifts))
+        .filter(|_| excluded[1].is_none() && time.acf.is_ok());
+    let acf_left_out_for_drift = drift_acf_reason.is_some();
+    if let Some(reason) = drift_acf_reason {
+        excluded[1] = Some(reason);
+    }
+    // Equipartition corrected by a factor from the spectral fit (or by the drift's share of the
+    // variance computed from it) is no more independent of the spectrum than equipartition in
+    // volts.
+    let equipartition_independent =
+        unit == PositionUnit::Nanometre && time.variance_factor == 1.0 && drift_account.is_none();
+    let drift_evidence = drift_account.as_ref().map(|a| {
+        drift::evidence(
+            a,
+            spectral.fit.as_ref().ok(),
+            drift_shifts.clone(),
+            acf_left_out_for_drift,
+        )
+    });
     let stiffness = consensus_stage(&propagated, equipartition_independent, excluded);
     let d_theory = physics.thermal_energy_j / drag.drag_kg_per_s.value;
     let failure_texts: Vec<(&str, String)> = failures
@@ -126,6 +160,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         lines_kept: spectral.lines.kept,
         failed_methods: &failure_texts,
         spectrum_excluded: stiffness.stiffness.excluded[0].as_deref(),
+        drift: drift_evidence.as_ref(),
     });
     Ok(assemble(
         name,

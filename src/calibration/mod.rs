@@ -10,6 +10,9 @@ mod axis;
 mod conditions;
 pub mod consensus;
 mod covariance;
+mod drift;
+#[cfg(test)]
+mod drift_tests;
 #[cfg(test)]
 mod exclusion_tests;
 mod propagation;

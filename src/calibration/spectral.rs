@@ -2,6 +2,7 @@
 //! this axis and its maximum-likelihood fit; and the removal of the sinusoids behind the peaks,
 //! which the time-domain stage needs.
 
+use super::drift::{self, FlickerTest};
 use super::{AnalysisOptions, CalibrationError, Physics, RunConditions};
 use crate::drag;
 use crate::spectrum::{
@@ -23,6 +24,9 @@ pub(crate) struct SpectralStage {
     /// The one model of this axis's measured spectrum.
     pub(crate) model: SpectrumModel,
     pub(crate) fit: Result<SpectrumFit, CalibrationError>,
+    /// The likelihood-ratio test of a 1/f drift term in the fit (`drift::flicker_refit`); when
+    /// it adopted the term, `fit` is the fit with it.
+    pub(crate) flicker_test: Option<FlickerTest>,
 }
 
 /// The model of the measured spectrum these options and conditions describe.
@@ -95,18 +99,29 @@ pub(crate) fn spectral_stage(
     if options.exclude_peaks {
         fit_options.excluded_bins = excluded_bins(&peaks, periodogram.psd.len());
     }
-    let fit = spectrum::fit_spectrum(&periodogram, &fit_options, None).map_err(|e| {
+    let mut fit = spectrum::fit_spectrum(&periodogram, &fit_options, None).map_err(|e| {
         CalibrationError::Spectrum {
             axis: name.to_string(),
             cause: e,
         }
     });
+    // Low-frequency drift reaches into the fit range: a 1/f term is tried beside the model and
+    // kept when the data ask for it (see `drift`).
+    let mut flicker_test = None;
+    if let Ok(plain_fit) = &fit {
+        let (adopted, test) = drift::flicker_refit(&periodogram, &fit_options, plain_fit);
+        flicker_test = test;
+        if let Some(refit) = adopted {
+            fit = Ok(refit);
+        }
+    }
     Ok(SpectralStage {
         periodogram,
         lines,
         peaks,
         model,
         fit,
+        flicker_test,
     })
 }
 

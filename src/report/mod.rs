@@ -223,6 +223,11 @@ pub struct SpectrumFitReport {
     pub windows: usize,
     pub detector_filter: Option<FilterReport>,
     pub excluded_peaks: Vec<PeakReport>,
+    /// The fitted 1/f drift term's one-sided density at 1 Hz, signal-unit^2/Hz, when the
+    /// likelihood-ratio test kept it (absent otherwise, and in documents written before it
+    /// existed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub drift_1f_density_at_1_hz: Option<ValueSe>,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -516,6 +521,10 @@ fn axis_report(
                     harmonic: p.mains.map(|m| m.1),
                 })
                 .collect(),
+            drift_1f_density_at_1_hz: fit.flicker.map(|t| ValueSe {
+                value: t.density_at_1_hz,
+                se: t.density_at_1_hz_se,
+            }),
         }),
         autocorrelation_fit: a.acf.as_ref().map(|acf| AcfFitReport {
             first_lag: acf.lags.first().copied().unwrap_or(0),

@@ -35,6 +35,8 @@ pub struct SpectrumFitOptions {
     pub target_blocks: usize,
     /// Periodogram bins left out of the fit (narrow peaks such as mains pickup).
     pub excluded_bins: Vec<usize>,
+    /// Fit an additive 1/f term, S(f) + A / f, beside the model (see [`FlickerTerm`]).
+    pub flicker: bool,
 }
 
 impl SpectrumFitOptions {
@@ -46,6 +48,7 @@ impl SpectrumFitOptions {
             min_bins_per_block: 32,
             target_blocks: 120,
             excluded_bins: Vec::new(),
+            flicker: false,
         }
     }
 
@@ -98,6 +101,32 @@ pub struct SpectrumFit {
     pub iterations: usize,
     /// The model that was fitted.
     pub model: SpectrumModel,
+    /// The additive 1/f term, when it was fitted (`SpectrumFitOptions::flicker`); `theta` and
+    /// `covariance` then hold the model's parameters only, the covariance being the marginal
+    /// one (the inverse of the full Fisher information, the 1/f term's row and column left out).
+    pub flicker: Option<FlickerTerm>,
+    /// The minimised Whittle cost, sum_b n_b [ln S_b + P_b / S_b], for likelihood-ratio tests
+    /// between nested fits of the same blocks (twice the difference is the statistic).
+    pub whittle_cost: f64,
+}
+
+/// A fitted additive 1/f ("flicker") term A / f of the one-sided spectrum: low-frequency drift
+/// of the bead, the stage or the detector whose density falls as 1/f (common practice, no
+/// source: the density of many slow instrumental processes). `A` is the density at 1 Hz in
+/// signal-units^2/Hz (so signal-units^2 after multiplying by Hz); it may come out slightly
+/// negative on data without drift, which keeps the likelihood-ratio test on the boundary-free
+/// parameter.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct FlickerTerm {
+    pub density_at_1_hz: f64,
+    pub density_at_1_hz_se: f64,
+}
+
+impl FlickerTerm {
+    /// The term's one-sided density at `f_hz` > 0, signal-units^2/Hz.
+    pub fn psd_at(&self, f_hz: f64) -> f64 {
+        self.density_at_1_hz / f_hz
+    }
 }
 
 /// Smallest reciprocal condition number (smallest over largest eigenvalue) of the parameters'
@@ -110,6 +139,12 @@ pub const MIN_PARAMETER_RCOND: f64 = 1e-8;
 impl SpectrumFit {
     /// The fitted model's one-sided PSD at `f_hz`, signal-units^2/Hz.
     pub fn model_psd_at(&self, f_hz: f64) -> f64 {
+        self.thermal_psd_at(f_hz) + self.flicker.map_or(0.0, |t| t.psd_at(f_hz))
+    }
+
+    /// The fitted model without the 1/f term (the bead's motion as the detector sees it),
+    /// signal-units^2/Hz.
+    pub fn thermal_psd_at(&self, f_hz: f64) -> f64 {
         self.model.one_sided_psd(f_hz, &self.theta)
     }
 
@@ -214,6 +249,50 @@ struct Whittle<'a> {
     blocks: &'a [Block],
     /// The periodogram's segments, for the leakage term of the expected periodogram.
     segment_len: Option<Segments>,
+    /// The additive 1/f term, when it is fitted.
+    flicker: Option<FlickerColumn>,
+}
+
+/// The 1/f term's place in theta and its shape over the blocks. Its parameter is linear (not
+/// logarithmic, so that zero is an interior point and the likelihood-ratio statistic for it is
+/// chi-square with one degree of freedom on data without drift): A = theta[index] * scale, with
+/// scale = P_1 f_1 of the first block, so the parameter is about the term's share of the first
+/// block's power.
+#[derive(Clone, Debug)]
+struct FlickerColumn {
+    index: usize,
+    scale: f64,
+    /// Mean of 1/f over each block, 1/Hz: ln(upper / lower) / (upper - lower), the continuous
+    /// mean standing for the mean over the block's bins as the model's block mean does (the
+    /// 1/f term's own leakage is not modelled).
+    inverse_f: Vec<f64>,
+}
+
+impl FlickerColumn {
+    fn new(index: usize, blocks: &[Block]) -> Option<FlickerColumn> {
+        let first = blocks.first()?;
+        let scale = first.psd * first.frequency_hz;
+        let inverse_f = blocks
+            .iter()
+            .map(|b| {
+                if b.lower_hz > 0.0 && b.upper_hz > b.lower_hz {
+                    (b.upper_hz / b.lower_hz).ln() / (b.upper_hz - b.lower_hz)
+                } else {
+                    1.0 / b.frequency_hz.max(f64::MIN_POSITIVE)
+                }
+            })
+            .collect();
+        (scale.is_finite() && scale > 0.0).then_some(FlickerColumn {
+            index,
+            scale,
+            inverse_f,
+        })
+    }
+
+    /// A, signal-units^2/Hz at 1 Hz, from theta.
+    fn density_at_1_hz(&self, theta: &[f64]) -> f64 {
+        theta.get(self.index).copied().unwrap_or(0.0) * self.scale
+    }
 }
 
 impl Whittle<'_> {
@@ -227,13 +306,21 @@ impl Whittle<'_> {
             .collect()
     }
 
+    /// The expected block means for theta: the model's, plus the 1/f term when it is fitted.
+    fn means_at(&self, theta: &[f64]) -> Vec<f64> {
+        let mut means = self.model_means(&self.model.decode(theta));
+        if let Some(flicker) = &self.flicker {
+            let a = flicker.density_at_1_hz(theta);
+            for (m, inv_f) in means.iter_mut().zip(&flicker.inverse_f) {
+                *m = a.mul_add(*inv_f, *m);
+            }
+        }
+        means
+    }
+
     fn cost_at(&self, theta: &[f64]) -> f64 {
-        let p = self.model.decode(theta);
         let mut total = 0.0;
-        for b in self.blocks {
-            let s = self
-                .model
-                .block_mean(b.lower_hz, b.upper_hz, &p, self.segment_len);
+        for (b, s) in self.blocks.iter().zip(self.means_at(theta)) {
             if !(s.is_finite() && s > 0.0) {
                 return f64::INFINITY;
             }
@@ -250,9 +337,9 @@ impl Whittle<'_> {
         let mut t = theta.to_vec();
         for i in 0..n {
             t[i] = theta[i] + h;
-            let up = self.model_means(&self.model.decode(&t));
+            let up = self.means_at(&t);
             t[i] = theta[i] - h;
-            let down = self.model_means(&self.model.decode(&t));
+            let down = self.means_at(&t);
             t[i] = theta[i];
             for (b, row) in out.iter_mut().enumerate() {
                 row[i] = (up[b].ln() - down[b].ln()) / (2.0 * h);
@@ -275,8 +362,7 @@ impl CostFunction for Whittle<'_> {
 /// d ln S_b (the gradient of minus L).
 fn fisher_and_score(w: &Whittle<'_>, theta: &[f64]) -> (Vec<Vec<f64>>, Vec<f64>) {
     let n = theta.len();
-    let p = w.model.decode(theta);
-    let means = w.model_means(&p);
+    let means = w.means_at(theta);
     let derivs = w.log_derivatives(theta);
     let mut fisher = vec![vec![0.0; n]; n];
     let mut score = vec![0.0; n];
@@ -320,7 +406,8 @@ pub fn fit_spectrum(
         options.target_blocks,
     );
     let model = &options.model;
-    let n_params = model.n_params();
+    let n_model_params = model.n_params();
+    let n_params = n_model_params + usize::from(options.flicker);
     if blocks.len() < n_params + 2 {
         return Err(SpectrumFitError::TooFewBlocks {
             f_min_hz,
@@ -342,8 +429,15 @@ pub fn fit_spectrum(
             differenced_from_hz: (periodogram.first_differenced_bin as f64 - 0.5)
                 * periodogram.resolution_hz(),
         }),
+        flicker: options
+            .flicker
+            .then(|| FlickerColumn::new(n_model_params, &blocks))
+            .flatten(),
     };
     let mut theta = model.initial_theta(fc0, d0);
+    if whittle.flicker.is_some() {
+        theta.push(0.0);
+    }
     let (mut theta_opt, mut iterations, converged) = fisher_scoring(&whittle, theta.clone(), 200);
     if !converged {
         theta = nelder_mead(&whittle, &theta_opt).unwrap_or(theta_opt.clone());
@@ -356,13 +450,24 @@ pub fn fit_spectrum(
         theta_opt = t;
         iterations += extra;
     }
-    let theta = theta_opt;
+    let mut theta = theta_opt;
     let (fisher, _) = fisher_and_score(&whittle, &theta);
-    let covariance = invert_spd(&fisher).ok_or_else(|| SpectrumFitError::NoConvergence {
+    let mut covariance = invert_spd(&fisher).ok_or_else(|| SpectrumFitError::NoConvergence {
         reason: "the Fisher information is singular: the parameters are not determined by the data in this range".into(),
     })?;
+    let model_psd = whittle.means_at(&theta);
+    let whittle_cost = whittle.cost_at(&theta);
+    let flicker = whittle.flicker.as_ref().map(|column| FlickerTerm {
+        density_at_1_hz: column.density_at_1_hz(&theta),
+        density_at_1_hz_se: column.scale * covariance[column.index][column.index].sqrt(),
+    });
+    // The model's parameters and their marginal covariance; the 1/f term is reported apart.
+    theta.truncate(n_model_params);
+    covariance.truncate(n_model_params);
+    for row in &mut covariance {
+        row.truncate(n_model_params);
+    }
     let p = model.decode(&theta);
-    let model_psd = whittle.model_means(&p);
     let chi_square: f64 = blocks
         .iter()
         .zip(&model_psd)
@@ -405,6 +510,8 @@ pub fn fit_spectrum(
         model_psd,
         iterations,
         model: *model,
+        flicker,
+        whittle_cost,
     })
 }
 
@@ -464,6 +571,7 @@ fn nelder_mead(w: &Whittle<'_>, theta: &[f64]) -> Option<Vec<f64>> {
         model: w.model,
         blocks: w.blocks,
         segment_len: w.segment_len,
+        flicker: w.flicker.clone(),
     };
     let result = Executor::new(problem, solver)
         .configure(|state| state.max_iters(2000))

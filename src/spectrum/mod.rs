@@ -20,7 +20,7 @@ mod peaks;
 mod tests;
 
 pub use fit::{
-    FitRange, MIN_PARAMETER_RCOND, PlainLorentzianFit, SpectrumFit, SpectrumFitError,
+    FitRange, FlickerTerm, MIN_PARAMETER_RCOND, PlainLorentzianFit, SpectrumFit, SpectrumFitError,
     SpectrumFitOptions, fit_spectrum, plain_lorentzian_wls,
 };
 pub use lines::{SpectralLine, fit_line, subtract_lines};

@@ -971,3 +971,64 @@ fn expected_periodogram_of_short_segments_equals_the_autocovariance_double_sum()
         }
     }
 }
+
+/// A noise-free periodogram: the exact aliased Lorentzian (Berg-Sorensen & Flyvbjerg, Rev. Sci.
+/// Instrum. 75, 594 (2004)) plus `flicker_at_1_hz / f`, on segments long enough (2^22 samples)
+/// that the finite-segment term is below 1e-5 of the spectrum.
+fn exact_periodogram_with_flicker(fc: f64, d: f64, fs: f64, flicker_at_1_hz: f64) -> Periodogram {
+    let segment_len = 1usize << 22;
+    let df = fs / segment_len as f64;
+    let psd = (0..=segment_len / 2)
+        .map(|k| {
+            let f = k as f64 * df;
+            let drift = if k == 0 { 0.0 } else { flicker_at_1_hz / f };
+            aliased_lorentzian_one_sided(f, fc, d, fs) + drift
+        })
+        .collect();
+    Periodogram {
+        sample_rate_hz: fs,
+        segment_len,
+        n_windows: 1,
+        psd,
+        first_differenced_bin: usize::MAX,
+    }
+}
+
+#[test]
+fn the_flicker_term_recovers_fc_d_and_the_drift_from_the_exact_spectrum() {
+    // Expected spectrum = aliased Lorentzian + A / f, exactly; the fit with the 1/f term must
+    // return fc, D and A to 1e-3 (the block means use 3-point quadrature and the continuous
+    // mean of 1/f over each block, both far more accurate than that over blocks of >= 32 bins),
+    // and without drift A must be zero to 1e-3 of the plateau at 10 Hz times 10 Hz.
+    let (fc, d, fs) = (950.0, 4.9e5, 100_000.0);
+    let plateau_at_10 = aliased_lorentzian_one_sided(10.0, fc, d, fs);
+    for a in [10.0 * plateau_at_10, 0.0] {
+        let pg = exact_periodogram_with_flicker(fc, d, fs, a);
+        let options = SpectrumFitOptions {
+            flicker: true,
+            ..SpectrumFitOptions::new(ideal_model(fs))
+        };
+        let fit = fit_spectrum(&pg, &options, None).expect("fits");
+        let term = fit.flicker.expect("the term is fitted");
+        check_close(fit.corner_frequency_hz, fc, 1e-3);
+        check_close(fit.diffusion, d, 1e-3);
+        assert!(
+            (term.density_at_1_hz - a).abs() < 1e-3 * 10.0 * plateau_at_10,
+            "A {} against {a}",
+            term.density_at_1_hz
+        );
+        assert!(term.density_at_1_hz_se > 0.0);
+        assert_eq!(
+            fit.theta.len(),
+            2,
+            "theta keeps the model's parameters only"
+        );
+        assert_eq!(fit.covariance.len(), 2);
+        // The model seen by the findings includes the term.
+        check_close(
+            fit.model_psd_at(20.0),
+            fit.thermal_psd_at(20.0) + term.density_at_1_hz / 20.0,
+            1e-12,
+        );
+    }
+}
