@@ -49,6 +49,7 @@ pub(crate) fn spectrum_model(
         aliasing: true,
         filter: options.filter,
         hydro,
+        exposure_s: options.exposure_time_s,
     }
 }
 
