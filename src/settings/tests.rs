@@ -387,14 +387,14 @@ fn resolve_converts_to_si_units() {
 #[test]
 fn an_exposure_longer_than_the_frame_interval_of_a_given_sample_rate_is_refused_naming_it() {
     // A camera's exposure fits within its frame: at most 1 / sample rate (here 1/5000 s).
-    let base = with(&base(), "sample_rate_hz", "5000");
-    let refused = with(&base, "exposure_time_s", "0.00021").resolve();
+    let at_5_khz = with(&base(), "sample_rate_hz", "5000");
+    let refused = with(&at_5_khz, "exposure_time_s", "0.00021").resolve();
     assert!(
         matches!(&refused, Err(SettingsError::BadValue { key, expected, .. })
             if key == "exposure_time_s" && expected.contains("frame interval")),
         "{refused:?}"
     );
-    let (_, _, analysis) = with(&base, "exposure_time_s", "0.0002")
+    let (_, _, analysis) = with(&at_5_khz, "exposure_time_s", "0.0002")
         .resolve()
         .expect("an exposure of one frame interval is allowed");
     assert_eq!(analysis.exposure_time_s, Some(0.0002));
