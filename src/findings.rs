@@ -76,6 +76,9 @@ pub struct FindingInputs<'a> {
     pub radius_m: f64,
     pub height_m: Option<f64>,
     pub hydrodynamics: bool,
+    /// The frequency scales of the drag under the run's conditions, whether the spectral model
+    /// holds them or not (the motion-blur check compares against a model with them).
+    pub hydro_terms: Option<crate::spectrum::HydroTerms>,
     /// The autocorrelation method's relaxation time, s, `None` when it failed.
     pub relaxation_time_s: Option<f64>,
     /// Lines fitted and subtracted from the record, and peaks left in (over the work budget).
@@ -382,8 +385,11 @@ pub const MOTION_BLUR_LIKELIHOOD_RATIO: f64 = 1000.0;
 /// The rule: for nanometre data analysed without an exposure, the spectral model is refitted
 /// with the longest exposure a camera can have, the frame interval W = 1/fs, on the same blocks,
 /// and the finding fires when that raises the likelihood by at least a factor
-/// [`MOTION_BLUR_LIKELIHOOD_RATIO`]. (A photodiode records volts and its own filter has a
-/// similar shape, so volt data are not tested: the detector-filter setting is the remedy there.)
+/// [`MOTION_BLUR_LIKELIHOOD_RATIO`]. Frequency-dependent drag also lowers the top of the
+/// spectrum (by about 1/(1 + sqrt(f/f_nu))), so when the model lacks it the blurred model must
+/// also beat the model with the drag (and no blur) by the same factor. (A photodiode records
+/// volts and its own filter has a similar shape, so volt data are not tested: the
+/// detector-filter setting is the remedy there; the message names it for nm data too.)
 fn motion_blur(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
     let Some(fit) = inp.spectrum else {
         return;
@@ -399,12 +405,23 @@ fn motion_blur(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
     let Some(gain) = crate::spectrum::likelihood_gain(fit, inp.periodogram, &blurred) else {
         return;
     };
-    if gain >= 2.0 * MOTION_BLUR_LIKELIHOOD_RATIO.ln() {
+    let threshold = 2.0 * MOTION_BLUR_LIKELIHOOD_RATIO.ln();
+    if let (None, Some(h)) = (fit.model.hydro, inp.hydro_terms) {
+        let with_drag = crate::spectrum::SpectrumModel {
+            hydro: Some(h),
+            ..fit.model
+        };
+        let drag_gain = crate::spectrum::likelihood_gain(fit, inp.periodogram, &with_drag);
+        if drag_gain.is_some_and(|g| gain - g < threshold) {
+            return;
+        }
+    }
+    if gain >= threshold {
         out.push(finding(
             "motion-blur-suspected",
             Severity::Warning,
             format!(
-                "axis {}: the spectrum has the shape a camera's motion blur gives (the model with an exposure of one frame interval, {frame_interval_s:.3e} s, fits it better by a likelihood ratio of e^{:.0}); if this is camera data, give the exposure time with --exposure-time-s (HTTP field exposure_time_s), at most the frame interval, so that every method models the blur",
+                "axis {}: the spectrum has the shape a camera's motion blur gives (the model with an exposure of one frame interval, {frame_interval_s:.3e} s, fits it better by a likelihood ratio of e^{:.0}); if this is camera data, give the exposure time with --exposure-time-s (HTTP field exposure_time_s), at most the frame interval, so that every method models the blur (for photodiode data the detector's filter lowers the top of the spectrum in a similar way: give --detector-filter instead)",
                 inp.axis,
                 gain / 2.0
             ),

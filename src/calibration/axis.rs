@@ -121,6 +121,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         radius_m: conditions.bead_diameter_m / 2.0,
         height_m: conditions.height_m,
         hydrodynamics: options.hydrodynamics,
+        hydro_terms: Some(spectral::hydro_terms(conditions, physics)),
         relaxation_time_s: time.acf.as_ref().ok().map(|a| a.relaxation_time_s),
         lines_removed: spectral.lines.removed.len(),
         lines_kept: spectral.lines.kept,
