@@ -343,11 +343,12 @@ impl SpectrumModel {
     /// lag 0. The finite-record term of the samples involves only the lags m != 0, so it is the
     /// one above with A c replaced by E. That of the differences also sees C_0 through
     /// C_y(1) = 2 E - C_0 - E c; written out (derived here) it is
-    /// 4 dt / (L 4 sin^2(theta/2)) {E N(c) / d^2 - c^(L-1) E (1 - c)^2 [(1 + c^2) cos theta - 2 c] / d^2
-    /// + C_0 cos theta}, with N(c) = [(1 - c)^2 ((1 + c^2) cos theta - 2 c) - d^2 cos theta] / c
-    /// = 4 u^2 - 2 u - 2 + c (4 - 4 u^3) + c^2 (4 u^2 - 2 u - 2), u = cos theta, expanded so that
-    /// no power of c divides (a fast component of a filter has c near 0). Without exposure
-    /// (C_0 = A, E = A c) it is the form above; the tests check both against the double sums.
+    /// 4 dt / (L 4 sin^2(theta/2)) {E N(c) / d^2 - c^(L-1) E (1 - c)^2 [(1 + c^2) cos theta - 2 c]
+    /// / d^2 + C_0 cos theta}, with N(c) = [(1 - c)^2 ((1 + c^2) cos theta - 2 c) - d^2 cos theta]
+    /// / c, which is 4 u^2 - 2 u - 2 + c (4 - 4 u^3) + c^2 (4 u^2 - 2 u - 2) with u = cos theta,
+    /// expanded so that no power of c divides (a fast component of a filter has c near 0).
+    /// Without exposure (C_0 = A, E = A c) it is the form above; the tests check both against
+    /// the double sums.
     pub(crate) fn leakage_params(
         &self,
         f_hz: f64,
@@ -386,12 +387,14 @@ impl SpectrumModel {
                 let (lag_zero, lag_one) = blurred_lags(f_j, variance, dt, w);
                 if differenced {
                     let u = cos_theta;
-                    let quadratic = (4.0 * u).mul_add(u, -2.0 * u - 2.0);
-                    let n_c =
-                        (c * c).mul_add(quadratic, c.mul_add(4.0 - 4.0 * u * u * u, quadratic));
+                    let quadratic = (4.0 * u).mul_add(u, (-2.0f64).mul_add(u, -2.0));
+                    let n_c = (c * c).mul_add(
+                        quadratic,
+                        c.mul_add((4.0 * u * u).mul_add(-u, 4.0), quadratic),
+                    );
                     let one_minus_c = 1.0 - c;
                     let end = c.powf(l - 1.0) * one_minus_c * one_minus_c * bracket;
-                    let braces = lag_one * (n_c - end) / (d * d) + lag_zero * u;
+                    let braces = lag_zero.mul_add(u, lag_one * (n_c - end) / (d * d));
                     4.0 * dt / (l * gain) * braces
                 } else {
                     -2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * lag_one * dt
