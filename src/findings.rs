@@ -75,6 +75,9 @@ pub struct FindingInputs<'a> {
     pub radius_m: f64,
     pub height_m: Option<f64>,
     pub hydrodynamics: bool,
+    /// The frequency scales of the drag under the run's conditions, whether the spectral model
+    /// holds them or not (the motion-blur check compares against a model with them).
+    pub hydro_terms: Option<crate::spectrum::HydroTerms>,
     /// The autocorrelation method's relaxation time, s, `None` when it failed.
     pub relaxation_time_s: Option<f64>,
     /// Lines fitted and subtracted from the record, and peaks left in (over the work budget).
@@ -118,6 +121,7 @@ pub fn assess(inp: &FindingInputs<'_>) -> Vec<Finding> {
     drift(inp, &mut out);
     peaks(inp, &mut out);
     fit_quality(inp, &mut out);
+    motion_blur(inp, &mut out);
     identifiability(inp, &mut out);
     consistency(inp, &mut out);
     diffusion(inp, &mut out);
@@ -389,6 +393,66 @@ fn fit_quality(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
             format!(
                 "axis {}: the spectral fit is marginal (chi-square per degree of freedom {:.2}, p = {:.3})",
                 inp.axis, reduced, fit.p_value
+            ),
+        ));
+    }
+}
+
+/// Likelihood ratio in favour of the blurred model above which `motion-blur-suspected` fires:
+/// 1000. For two simple hypotheses the ratio L_blur / L_instant exceeds k on data of the
+/// instantaneous model with probability at most 1/k (Markov's inequality, since its expectation
+/// under that model is 1; the universal bound on misleading evidence, common practice); with fc
+/// and D refitted under each model the bound holds approximately. Twice its logarithm is
+/// compared with the gain of `spectrum::likelihood_gain`.
+pub const MOTION_BLUR_LIKELIHOOD_RATIO: f64 = 1000.0;
+
+/// Camera motion blur not modelled: a camera averages the position over its exposure, which
+/// lowers the spectrum towards the Nyquist frequency by sinc^2(pi f W) and the variance by
+/// S(W/tau) (Wong & Halvorsen, Opt. Express 14, 12517 (2006)); fitted as instantaneous samples
+/// this biases fc, D and equipartition by tens of per cent.
+///
+/// The rule: for nanometre data analysed without an exposure, the spectral model is refitted
+/// with the longest exposure a camera can have, the frame interval W = 1/fs, on the same blocks,
+/// and the finding fires when that raises the likelihood by at least a factor
+/// [`MOTION_BLUR_LIKELIHOOD_RATIO`]. Frequency-dependent drag also lowers the top of the
+/// spectrum (by about 1/(1 + sqrt(f/f_nu))), so when the model lacks it the blurred model must
+/// also beat the model with the drag (and no blur) by the same factor. (A photodiode records
+/// volts and its own filter has a similar shape, so volt data are not tested: the
+/// detector-filter setting is the remedy there; the message names it for nm data too.)
+fn motion_blur(inp: &FindingInputs<'_>, out: &mut Vec<Finding>) {
+    let Some(fit) = inp.spectrum else {
+        return;
+    };
+    if inp.unit != PositionUnit::Nanometre || fit.model.exposure_s.is_some() {
+        return;
+    }
+    let frame_interval_s = 1.0 / inp.sample_rate_hz;
+    let blurred = crate::spectrum::SpectrumModel {
+        exposure_s: Some(frame_interval_s),
+        ..fit.model
+    };
+    let Some(gain) = crate::spectrum::likelihood_gain(fit, inp.periodogram, &blurred) else {
+        return;
+    };
+    let threshold = 2.0 * MOTION_BLUR_LIKELIHOOD_RATIO.ln();
+    if let (None, Some(h)) = (fit.model.hydro, inp.hydro_terms) {
+        let with_drag = crate::spectrum::SpectrumModel {
+            hydro: Some(h),
+            ..fit.model
+        };
+        let drag_gain = crate::spectrum::likelihood_gain(fit, inp.periodogram, &with_drag);
+        if drag_gain.is_some_and(|g| gain - g < threshold) {
+            return;
+        }
+    }
+    if gain >= threshold {
+        out.push(finding(
+            "motion-blur-suspected",
+            Severity::Warning,
+            format!(
+                "axis {}: the spectrum has the shape a camera's motion blur gives (the model with an exposure of one frame interval, {frame_interval_s:.3e} s, fits it better by a likelihood ratio of e^{:.0}); if this is camera data, give the exposure time with --exposure-time-s (HTTP field exposure_time_s), at most the frame interval, so that every method models the blur (for photodiode data the detector's filter lowers the top of the spectrum in a similar way: give --detector-filter instead)",
+                inp.axis,
+                gain / 2.0
             ),
         ));
     }

@@ -350,6 +350,7 @@ impl HydroIntegrand {
                 .filter
                 .map_or(FilterSetting::None, FilterSetting::Fixed),
             hydro: Some(hydro),
+            exposure_s: None,
         };
         let f3 = model.filter.map_or(0.0, |f| f.f3db_hz);
         let highest_hz = hydro

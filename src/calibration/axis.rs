@@ -67,7 +67,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
             sample_rate_hz,
             filter: spectral.model.decode(&fit.theta).filter,
             hydro: spectral.model.hydro,
-            exposure_s: None,
+            exposure_s: spectral.model.exposure_s,
         },
         corner_frequency_hz: fit.corner_frequency_hz,
         diffusion: fit.diffusion,
@@ -155,6 +155,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         radius_m: conditions.bead_diameter_m / 2.0,
         height_m: conditions.height_m,
         hydrodynamics: options.hydrodynamics,
+        hydro_terms: Some(spectral::hydro_terms(conditions, physics)),
         relaxation_time_s: time.acf.as_ref().ok().map(|a| a.relaxation_time_s),
         lines_removed: spectral.lines.removed.len(),
         lines_kept: spectral.lines.kept,
@@ -320,6 +321,9 @@ pub(crate) fn exclusions(
     if spectral.model.hydro.is_some() {
         unmodelled.push("frequency-dependent drag");
     }
+    if spectral.model.exposure_s.is_some() {
+        unmodelled.push("the camera's exposure");
+    }
     let acf_p = time.acf.as_ref().map_or(1.0, |a| {
         chi_square_p_value(a.chi_square, a.degrees_of_freedom)
     });
@@ -350,6 +354,11 @@ pub(crate) fn exclusions(
     {
         Some(
             "not applicable: the photodiode filter removes part of the variance the detector reports, and without a spectral fit there is no filter to correct it by"
+                .to_string(),
+        )
+    } else if spectral.model.exposure_s.is_some() && spectral.fit.is_err() {
+        Some(
+            "not applicable: the camera's exposure averages away part of the variance, by a factor that depends on the corner frequency, and without a spectral fit there is none to correct it by"
                 .to_string(),
         )
     } else {

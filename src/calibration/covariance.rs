@@ -135,6 +135,7 @@ pub(crate) fn method_correlation(
                 aliasing: true,
                 filter: FilterSetting::None,
                 hydro: None,
+                exposure_s: None,
             };
             // An empty fit band: no spectral weights.
             (
@@ -187,7 +188,8 @@ const DERIVATIVE_STEP: f64 = 1e-5;
 /// The model spectrum at fixed theta, evaluated with everything that does not depend on the
 /// frequency worked out once.
 enum SpectrumAndGradient<'a> {
-    /// The closed-form aliased Lorentzian (aliasing on, no filter, no hydrodynamics):
+    /// The closed-form aliased Lorentzian (aliasing on, no filter, no hydrodynamics, no
+    /// exposure):
     /// S(f) = num / (1 + c^2 - 2 c cos(2 pi f dt)), num = 2 sigma^2 dt (1 - c^2),
     /// sigma^2 = D / (2 pi fc), c = exp(-a), a = 2 pi fc dt, exactly as
     /// `spectrum::aliased_lorentzian_one_sided` computes it. In theta = (ln fc, ln D):
@@ -218,6 +220,7 @@ impl<'a> SpectrumAndGradient<'a> {
         let closed_form = model.aliasing
             && model.filter == FilterSetting::None
             && model.hydro.is_none()
+            && model.exposure_s.is_none()
             && theta.len() == 2;
         if closed_form {
             let p = model.decode(theta);

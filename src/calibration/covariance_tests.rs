@@ -86,6 +86,7 @@ fn closed_form_model() -> SpectrumModel {
         aliasing: true,
         filter: FilterSetting::None,
         hydro: None,
+        exposure_s: None,
     }
 }
 

@@ -7,6 +7,8 @@
 //! nanometre; for volt data it is the volt.
 
 mod axis;
+#[cfg(test)]
+mod camera_blur_tests;
 mod conditions;
 pub mod consensus;
 mod covariance;
@@ -99,6 +101,11 @@ pub struct AnalysisOptions {
     /// is the plain model (off); the run settings turn it on unless told otherwise (their
     /// table, `settings::SPECS`, holds the user-facing default).
     pub hydrodynamics: bool,
+    /// Exposure time of a camera, s: every sample is the box-car average of the position over
+    /// this time (motion blur), which every method models (Wong & Halvorsen, Opt. Express 14,
+    /// 12517 (2006)). At most the frame interval 1 / sample rate; `None` for instantaneous
+    /// samples.
+    pub exposure_time_s: Option<f64>,
     /// What equipartition removes before taking the variance.
     pub detrend: Detrend,
     /// Lag window of the autocorrelation fit.
@@ -118,6 +125,7 @@ impl Default for AnalysisOptions {
             n_windows: None,
             filter: FilterSetting::None,
             hydrodynamics: false,
+            exposure_time_s: None,
             detrend: Detrend::Mean,
             acf: AcfFitOptions::default(),
             target_relative_precision: 0.05,
@@ -163,6 +171,14 @@ pub enum CalibrationError {
     Equipartition {
         axis: String,
         cause: EquipartitionError,
+    },
+    /// The camera's exposure is longer than the frame interval, or not a positive number.
+    #[error(
+        "setting `exposure_time_s` = {exposure_time_s} s is invalid: an exposure must be positive and fit within its frame, at most the frame interval 1/sample rate = {frame_interval_s} s"
+    )]
+    InvalidExposure {
+        exposure_time_s: f64,
+        frame_interval_s: f64,
     },
     /// The axis never changes value.
     #[error(
@@ -381,6 +397,14 @@ pub fn calibrate(
         return Err(CalibrationError::NoAxes);
     }
     check_positive("sample_rate_hz", recording.sample_rate_hz)?;
+    if let Some(w) = options.exposure_time_s
+        && !(w > 0.0 && w <= max_exposure_s(recording.sample_rate_hz))
+    {
+        return Err(CalibrationError::InvalidExposure {
+            exposure_time_s: w,
+            frame_interval_s: 1.0 / recording.sample_rate_hz,
+        });
+    }
     let physics = physics(conditions)?;
     let one_axis = |axis: &crate::recording::AxisTrace| {
         axis::calibrate_axis(&axis::AxisInput {
@@ -422,4 +446,10 @@ pub fn calibrate(
 /// Gamma statistics for the fit (common practice).
 pub fn default_windows(n_samples: usize) -> usize {
     ((n_samples as f64 / f64::from(1u32 << 18)).round() as usize).max(1)
+}
+
+/// The longest exposure a camera sampling at `sample_rate_hz` can have, s: the frame interval,
+/// with a relative allowance of 1e-9 so that an exposure equal to it written in decimal passes.
+pub fn max_exposure_s(sample_rate_hz: f64) -> f64 {
+    (1.0 + 1e-9) / sample_rate_hz
 }

@@ -36,23 +36,29 @@ pub(crate) fn spectrum_model(
     physics: &Physics,
     options: &AnalysisOptions,
 ) -> SpectrumModel {
-    let hydro = options.hydrodynamics.then(|| {
-        let h = drag::hydrodynamic_frequencies(
-            physics.viscosity_pa_s,
-            physics.fluid_density_kg_per_m3,
-            conditions.bead_density_kg_per_m3,
-            conditions.bead_diameter_m / 2.0,
-        );
-        HydroTerms {
-            f_nu_hz: h.f_nu_hz,
-            f_m_hz: h.f_m_hz,
-        }
-    });
+    let hydro = options
+        .hydrodynamics
+        .then(|| hydro_terms(conditions, physics));
     SpectrumModel {
         sample_rate_hz,
         aliasing: true,
         filter: options.filter,
         hydro,
+        exposure_s: options.exposure_time_s,
+    }
+}
+
+/// The frequency scales of the drag on the bead under these conditions (bulk form).
+pub(crate) fn hydro_terms(conditions: &RunConditions, physics: &Physics) -> HydroTerms {
+    let h = drag::hydrodynamic_frequencies(
+        physics.viscosity_pa_s,
+        physics.fluid_density_kg_per_m3,
+        conditions.bead_density_kg_per_m3,
+        conditions.bead_diameter_m / 2.0,
+    );
+    HydroTerms {
+        f_nu_hz: h.f_nu_hz,
+        f_m_hz: h.f_m_hz,
     }
 }
 

@@ -315,6 +315,9 @@ fn calibration_code(e: &CalibrationError) -> (&'static str, Option<String>) {
         CalibrationError::Autocorrelation { .. } => ("autocorrelation-fit-failed", None),
         CalibrationError::Equipartition { .. } => ("equipartition-failed", None),
         CalibrationError::ConstantSignal { .. } => ("constant-signal", None),
+        CalibrationError::InvalidExposure { .. } => {
+            ("invalid-exposure", Some("exposure_time_s".into()))
+        }
     }
 }
 

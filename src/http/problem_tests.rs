@@ -41,3 +41,25 @@ fn refused_run_conditions_name_a_field_of_the_settings_table() {
         }
     }
 }
+
+#[test]
+fn an_exposure_longer_than_the_frame_is_a_422_naming_the_exposure_field() {
+    // The file's own rate is known only to the calibration, which refuses the exposure there.
+    let refused = crate::calibration::CalibrationError::InvalidExposure {
+        exposure_time_s: 1e-3,
+        frame_interval_s: 5e-4,
+    };
+    match AppError::from(PipelineError::Calibration(refused)) {
+        AppError::Unprocessable {
+            code,
+            field,
+            detail,
+        } => {
+            assert_eq!(code, "invalid-exposure");
+            assert_eq!(field.as_deref(), Some("exposure_time_s"));
+            assert!(KEYS.contains(&"exposure_time_s"));
+            assert!(detail.contains("frame interval"), "{detail}");
+        }
+        other => panic!("{other:?}"),
+    }
+}

@@ -118,6 +118,10 @@ pub struct OptionsInfo {
     /// `none`, `fixed` or `fitted`.
     pub detector_filter: String,
     pub hydrodynamics: bool,
+    /// The camera's exposure time modelled (motion blur), s; absent for instantaneous samples
+    /// (and in documents written before it existed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub exposure_time_s: Option<f64>,
     /// `mean` or `linear`.
     pub detrend: String,
     pub exclude_peaks: bool,
@@ -389,6 +393,7 @@ pub fn build(
             }
             .into(),
             hydrodynamics: options.hydrodynamics,
+            exposure_time_s: options.exposure_time_s,
             detrend: match options.detrend {
                 Detrend::Mean => "mean",
                 Detrend::Linear => "linear",

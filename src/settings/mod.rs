@@ -264,6 +264,20 @@ impl Settings {
             analysis.filter = f;
         }
         analysis.hydrodynamics = self.boolean_or_default("hydrodynamics");
+        analysis.exposure_time_s = self.number("exposure_time_s");
+        if let (Some(w), Some(fs)) = (analysis.exposure_time_s, ingest.sample_rate_hz) {
+            // The same rule the calibration applies once the file's own rate is known.
+            if w > crate::calibration::max_exposure_s(fs) {
+                return Err(bad(
+                    "exposure_time_s",
+                    &w.to_string(),
+                    format!(
+                        "the exposure must fit within its frame: at most the frame interval 1/sample_rate_hz = {} s",
+                        1.0 / fs
+                    ),
+                ));
+            }
+        }
         if let Some(d) = self.choice("detrend", parse_detrend)? {
             analysis.detrend = d;
         }

@@ -646,6 +646,20 @@ pub const SPECS: &[SettingSpec] = &[
         },
     },
     SettingSpec {
+        key: "exposure_time_s",
+        label: "Camera exposure",
+        kind: Kind::Number(Range::Positive),
+        unit: "s",
+        help: "Exposure time of a camera: each frame is the average position over this time \
+               (motion blur), at most the frame interval 1/sample rate.",
+        absent: Absent::Means("instantaneous samples (no motion blur)"),
+        example: "0.0002",
+        flag: Flag::Value {
+            long: "exposure-time-s",
+            value_name: "S",
+        },
+    },
+    SettingSpec {
         key: "detrend",
         label: "Equipartition detrend",
         kind: Kind::Choice(&DETREND_CHOICES),

@@ -448,3 +448,24 @@ fn a_given_bead_density_wins_over_the_material_and_the_medium_density_is_passed_
         Some(1100.0)
     );
 }
+
+#[test]
+fn an_exposure_longer_than_the_frame_interval_of_a_given_sample_rate_is_refused_naming_it() {
+    // A camera's exposure fits within its frame: at most 1 / sample rate (here 1/5000 s).
+    let at_5_khz = with(&base(), "sample_rate_hz", "5000");
+    let refused = with(&at_5_khz, "exposure_time_s", "0.00021").resolve();
+    assert!(
+        matches!(&refused, Err(SettingsError::BadValue { key, expected, .. })
+            if key == "exposure_time_s" && expected.contains("frame interval")),
+        "{refused:?}"
+    );
+    let (_, _, analysis) = with(&at_5_khz, "exposure_time_s", "0.0002")
+        .resolve()
+        .expect("an exposure of one frame interval is allowed");
+    assert_eq!(analysis.exposure_time_s, Some(0.0002));
+    // Without a sample rate here the calibration checks it against the file's own.
+    let (_, _, analysis) = with(&base(), "exposure_time_s", "0.01")
+        .resolve()
+        .expect("checked later");
+    assert_eq!(analysis.exposure_time_s, Some(0.01));
+}

@@ -423,12 +423,7 @@ pub fn fit_spectrum(
     let whittle = Whittle {
         model,
         blocks: &blocks,
-        segment_len: Some(Segments {
-            len: periodogram.segment_len,
-            // Halfway between the last plain bin and the first differenced one.
-            differenced_from_hz: (periodogram.first_differenced_bin as f64 - 0.5)
-                * periodogram.resolution_hz(),
-        }),
+        segment_len: Some(segments_of(periodogram)),
         flicker: options
             .flicker
             .then(|| FlickerColumn::new(n_model_params, &blocks))
@@ -513,6 +508,55 @@ pub fn fit_spectrum(
         flicker,
         whittle_cost,
     })
+}
+
+/// The periodogram's segments, for the leakage term of the expected periodogram.
+fn segments_of(periodogram: &Periodogram) -> Segments {
+    Segments {
+        len: periodogram.segment_len,
+        // Halfway between the last plain bin and the first differenced one.
+        differenced_from_hz: (periodogram.first_differenced_bin as f64 - 0.5)
+            * periodogram.resolution_hz(),
+    }
+}
+
+/// How much better `alternative` describes the blocks `fit` was made on: twice the drop of the
+/// negative Whittle log-likelihood, 2 (L_fit - L_alternative), with the alternative's
+/// parameters refitted by Fisher scoring from the fit's own (so `alternative` must have the
+/// same parameters as `fit.model`, for instance the same model with a camera exposure added).
+/// Positive when the alternative fits better; e^(gain/2) is the likelihood ratio. `None` when
+/// the alternative cannot be fitted (no finite likelihood or no convergence).
+pub fn likelihood_gain(
+    fit: &SpectrumFit,
+    periodogram: &Periodogram,
+    alternative: &SpectrumModel,
+) -> Option<f64> {
+    if alternative.n_params() != fit.theta.len() {
+        return None;
+    }
+    let segments = Some(segments_of(periodogram));
+    // Both models are compared without a 1/f drift term: when the fit kept one, its own model
+    // is refitted without it first, so the two costs are of like models.
+    let own = Whittle {
+        model: &fit.model,
+        blocks: &fit.blocks,
+        segment_len: segments,
+        flicker: None,
+    };
+    let other = Whittle {
+        model: alternative,
+        blocks: &fit.blocks,
+        segment_len: segments,
+        flicker: None,
+    };
+    let own_theta = if fit.flicker.is_some() {
+        fisher_scoring(&own, fit.theta.clone(), 200).0
+    } else {
+        fit.theta.clone()
+    };
+    let (theta, _, converged) = fisher_scoring(&other, own_theta.clone(), 200);
+    let gain = 2.0 * (own.cost_at(&own_theta) - other.cost_at(&theta));
+    (converged && gain.is_finite()).then_some(gain)
 }
 
 /// Fisher scoring: theta <- theta + F^-1 g, halving the step until the likelihood improves.

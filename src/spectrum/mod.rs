@@ -12,6 +12,8 @@
 //! sampling interval dt gives S_k = 2 dt |X_k|^2 / L for 0 < k < L/2 (DC and Nyquist bins are
 //! not doubled). Frequencies are in ascending order, f_k = k / (L dt).
 
+#[cfg(test)]
+mod blur_tests;
 mod fit;
 mod lines;
 mod model;
@@ -21,7 +23,7 @@ mod tests;
 
 pub use fit::{
     FitRange, FlickerTerm, MIN_PARAMETER_RCOND, PlainLorentzianFit, SpectrumFit, SpectrumFitError,
-    SpectrumFitOptions, fit_spectrum, plain_lorentzian_wls,
+    SpectrumFitOptions, fit_spectrum, likelihood_gain, plain_lorentzian_wls,
 };
 pub use lines::{SpectralLine, fit_line, subtract_lines};
 pub(crate) use model::Params;

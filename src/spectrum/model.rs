@@ -60,6 +60,9 @@ pub struct SpectrumModel {
     pub filter: FilterSetting,
     /// Frequency-dependent drag, or `None` for constant Stokes drag.
     pub hydro: Option<HydroTerms>,
+    /// Exposure time W of a camera, s (each sample is the box-car average of the position over
+    /// W within its frame, 0 < W <= 1/sample_rate_hz); `None` for instantaneous samples.
+    pub exposure_s: Option<f64>,
 }
 
 /// Number of alias images summed on each side when no closed form applies; the rest is added
@@ -96,6 +99,78 @@ fn hydro_spectrum(f_hz: f64, fc: f64, d: f64, hydro: &HydroTerms) -> f64 {
     let re = f.mul_add(-s, fc) - f * f / hydro.f_m_hz;
     let im = f.mul_add(s, f);
     d / (PI * PI) * (1.0 + s) / re.mul_add(re, im * im)
+}
+
+/// sin^2(x) / x^2, the power gain of a box-car average at x = pi f W.
+fn sinc_squared(x: f64) -> f64 {
+    if x.abs() < 1e-4 {
+        // 1 - x^2/3 + O(x^4).
+        (x * x).mul_add(-1.0 / 3.0, 1.0)
+    } else {
+        let s = x.sin() / x;
+        s * s
+    }
+}
+
+/// S(a) = 2 (a - 1 + e^-a) / a^2, the variance of a box-car average of width W = a tau of an
+/// Ornstein-Uhlenbeck process relative to its variance (Wong & Halvorsen, Opt. Express 14,
+/// 12517 (2006)); below a = 0.01 the series 1 - a/3 + a^2/12 - a^3/60 + a^4/360 (next term
+/// below 1e-15) avoids the cancellation.
+fn box_average_variance_factor(a: f64) -> f64 {
+    if a < 0.01 {
+        a.mul_add(
+            a.mul_add(a.mul_add(a / 360.0, -1.0 / 60.0), 1.0 / 12.0),
+            -1.0 / 3.0,
+        )
+        .mul_add(a, 1.0)
+    } else {
+        2.0 * (a + (-a).exp_m1()) / (a * a)
+    }
+}
+
+/// The sampled autocovariance of one exponential component (variance `variance`, corner
+/// `corner_hz`) seen through box-car exposures of width `exposure_s` every `dt`, as (lag 0,
+/// lag 1) values, signal-unit^2. Lag 0 is variance S(a), a = W / tau (Wong & Halvorsen 2006);
+/// two box-cars m dt >= W apart see variance e^(-|t - t'|/tau) averaged over both boxes,
+/// variance ((1 - e^-a)/a)^2 e^(-(m dt - W)/tau) (derived here: the double integral of the
+/// exponential over two disjoint intervals factorises), so lag m >= 1 is the lag-one value times
+/// c^(m-1), c = e^(-dt/tau).
+fn blurred_lags(corner_hz: f64, variance: f64, dt: f64, exposure_s: f64) -> (f64, f64) {
+    let rate = 2.0 * PI * corner_hz;
+    let a = rate * exposure_s;
+    let mean_of_box = if a > 0.0 { -(-a).exp_m1() / a } else { 1.0 };
+    let lag_one = variance * mean_of_box * mean_of_box * (-rate * (dt - exposure_s)).exp();
+    (variance * box_average_variance_factor(a), lag_one)
+}
+
+/// One-sided aliased spectrum of one exponential component (variance `variance`, corner
+/// `corner_hz`) sampled at `sample_rate_hz` as box-car averages over `exposure_s` (a camera),
+/// signal-unit^2/Hz, at `f_hz` in [0, fs/2].
+///
+/// The samples' autocovariance is C_0 at lag 0 and E c^(|m|-1) at lags m != 0
+/// ([`blurred_lags`]), so the one-sided spectrum 2 dt sum_m C_m cos(m theta) is
+/// 2 dt {C_0 + 2 E (cos theta - c) / (1 + c^2 - 2 c cos theta)}, theta = 2 pi f dt. With
+/// C_0 = sigma^2 S(a) and E = sigma^2 (2 sinh(a/2)/a)^2 c this is twice the two-sided form of
+/// Wong & Halvorsen, Opt. Express 14, 12517 (2006) (shared PHYSICS.md section 2), which equals
+/// sum_n S_Lorentz(f + n fs) sinc^2(pi (f + n fs) W); the tests check it against that sum. The
+/// denominator is (1 - c)^2 + 4 c sin^2(theta/2) and cos theta - c is
+/// (1 - c) - 2 sin^2(theta/2), which keep their accuracy when fc dt and f dt are small.
+fn blurred_component_one_sided(
+    f_hz: f64,
+    corner_hz: f64,
+    variance: f64,
+    sample_rate_hz: f64,
+    exposure_s: f64,
+) -> f64 {
+    let dt = 1.0 / sample_rate_hz;
+    let (lag_zero, lag_one) = blurred_lags(corner_hz, variance, dt, exposure_s);
+    let one_minus_c = -(-2.0 * PI * corner_hz * dt).exp_m1();
+    let c = 1.0 - one_minus_c;
+    let half = (PI * f_hz * dt).sin();
+    let sin2 = half * half;
+    let denominator = one_minus_c.mul_add(one_minus_c, 4.0 * c * sin2);
+    let cos_minus_c = 2.0f64.mul_add(-sin2, one_minus_c);
+    2.0 * dt * (2.0 * lag_one * cos_minus_c / denominator + lag_zero)
 }
 
 /// The periodogram's segments, for the finite-segment term of its expectation.
@@ -200,33 +275,44 @@ impl SpectrumModel {
     ///
     /// With aliasing and an autocovariance that is a sum of exponentials (no hydrodynamics) the
     /// closed form is used: each exponential of variance A and corner f_j samples to an aliased
-    /// Lorentzian (Berg-Sorensen & Flyvbjerg 2004), so the sum is exact. Otherwise the filter
-    /// and the drag act before sampling, so the aliases are summed numerically,
-    /// sum_{|n| <= M} g(f + n fs) S(f + n fs), and the images beyond M are added as the exact
-    /// Lorentzian tail (closed form minus its partial sum) scaled by the ratio of the full model
-    /// to the Lorentzian at the cut-off, which is constant to first order out there
-    /// (derived here; the tail is a few per cent of the total at f_Nyquist for M = 24).
+    /// Lorentzian (Berg-Sorensen & Flyvbjerg 2004), or, under a camera's exposure, to its blurred
+    /// form (Wong & Halvorsen, Opt. Express 14, 12517 (2006); see
+    /// [`blurred_component_one_sided`]), so the sum is exact. Otherwise the filter, the drag and
+    /// the exposure act before sampling, so the aliases are summed numerically,
+    /// sum_{|n| <= M} g(f + n fs) S(f + n fs) sinc^2(pi (f + n fs) W) (the box-car of width W
+    /// has the power gain sinc^2(pi f W)), and the images beyond M are added as the exact
+    /// Lorentzian tail (its closed form, blurred or not, minus its partial sum) scaled by the
+    /// ratio of the full model to the Lorentzian at the cut-off, which is constant to first
+    /// order out there (derived here; the tail is a few per cent of the total at f_Nyquist for
+    /// M = 24, less under an exposure).
     pub(crate) fn psd_params(&self, f_hz: f64, p: &Params) -> f64 {
         if !self.aliasing {
-            return self.unaliased(f_hz, p);
+            let box_gain = self.exposure_s.map_or(1.0, |w| sinc_squared(PI * f_hz * w));
+            return self.unaliased(f_hz, p) * box_gain;
         }
         let fs = self.sample_rate_hz;
         if let Some(components) = self.exponential_components(p) {
             return components
                 .iter()
                 .filter(|(_, variance)| *variance != 0.0)
-                .map(|&(f_j, variance)| {
-                    aliased_lorentzian_one_sided(f_hz, f_j, variance * 2.0 * PI * f_j, fs)
+                .map(|&(f_j, variance)| match self.exposure_s {
+                    Some(w) => blurred_component_one_sided(f_hz, f_j, variance, fs, w),
+                    None => aliased_lorentzian_one_sided(f_hz, f_j, variance * 2.0 * PI * f_j, fs),
                 })
                 .sum();
         }
-        let closed = aliased_lorentzian_one_sided(f_hz, p.fc, p.d, fs);
+        let blur = |f: f64| self.exposure_s.map_or(1.0, |w| sinc_squared(PI * f * w));
+        let closed = match self.exposure_s {
+            Some(w) => blurred_component_one_sided(f_hz, p.fc, p.d / (2.0 * PI * p.fc), fs, w),
+            None => aliased_lorentzian_one_sided(f_hz, p.fc, p.d, fs),
+        };
         let mut sum = 0.0;
         let mut lorentz_partial = 0.0;
         for n in -ALIAS_TERMS..=ALIAS_TERMS {
             let f = f64::from(n).mul_add(fs, f_hz);
-            sum += self.unaliased(f, p);
-            lorentz_partial += lorentzian(f, p.fc, p.d);
+            let box_gain = blur(f);
+            sum += self.unaliased(f, p) * box_gain;
+            lorentz_partial += lorentzian(f, p.fc, p.d) * box_gain;
         }
         let cutoff = (f64::from(ALIAS_TERMS) + 0.5) * fs;
         let ratio = self.unaliased(cutoff, p) / lorentzian(cutoff, p.fc, p.d);
@@ -250,6 +336,19 @@ impl SpectrumModel {
     /// exponentials (the tests check them against the double sums); with frequency-dependent
     /// drag the plain Lorentzian of the same fc and D stands in (an approximation: the term
     /// comes from the slow, Lorentzian-like part of the motion).
+    ///
+    /// Under a camera's exposure each component's sampled autocovariance is C_0 = A S(a) at lag
+    /// 0 and E c^(m-1) at lags m >= 1, E = A ((1 - e^-a)/a)^2 e^(-(dt - W)/tau_j) its lag-one
+    /// value (a = W/tau_j; see [`blurred_component_one_sided`]): an exponential plus a spike at
+    /// lag 0. The finite-record term of the samples involves only the lags m != 0, so it is the
+    /// one above with A c replaced by E. That of the differences also sees C_0 through
+    /// C_y(1) = 2 E - C_0 - E c; written out (derived here) it is
+    /// 4 dt / (L 4 sin^2(theta/2)) {E N(c) / d^2 - c^(L-1) E (1 - c)^2 [(1 + c^2) cos theta - 2 c]
+    /// / d^2 + C_0 cos theta}, with N(c) = [(1 - c)^2 ((1 + c^2) cos theta - 2 c) - d^2 cos theta]
+    /// / c, which is 4 u^2 - 2 u - 2 + c (4 - 4 u^3) + c^2 (4 u^2 - 2 u - 2) with u = cos theta,
+    /// expanded so that no power of c divides (a fast component of a filter has c near 0).
+    /// Without exposure (C_0 = A, E = A c) it is the form above; the tests check both against
+    /// the double sums.
     pub(crate) fn leakage_params(
         &self,
         f_hz: f64,
@@ -276,12 +375,29 @@ impl SpectrumModel {
                 let d = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
                 let c_l = c.powf(l);
                 let bracket = c.mul_add(c, 1.0).mul_add(cos_theta, -2.0 * c);
-                let edge = 2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * variance * dt;
+                let Some(w) = self.exposure_s else {
+                    let edge = 2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * variance * dt;
+                    return if differenced {
+                        let one_minus_c = 1.0 - c;
+                        edge * one_minus_c * one_minus_c / gain
+                    } else {
+                        -edge * c
+                    };
+                };
+                let (lag_zero, lag_one) = blurred_lags(f_j, variance, dt, w);
                 if differenced {
+                    let u = cos_theta;
+                    let quadratic = (4.0 * u).mul_add(u, (-2.0f64).mul_add(u, -2.0));
+                    let n_c = (c * c).mul_add(
+                        quadratic,
+                        c.mul_add((4.0 * u * u).mul_add(-u, 4.0), quadratic),
+                    );
                     let one_minus_c = 1.0 - c;
-                    edge * one_minus_c * one_minus_c / gain
+                    let end = c.powf(l - 1.0) * one_minus_c * one_minus_c * bracket;
+                    let braces = lag_zero.mul_add(u, lag_one * (n_c - end) / (d * d));
+                    4.0 * dt / (l * gain) * braces
                 } else {
-                    -edge * c
+                    -2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * lag_one * dt
                 }
             })
             .sum()
