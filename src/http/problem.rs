@@ -315,6 +315,10 @@ fn calibration_code(e: &CalibrationError) -> (&'static str, Option<String>) {
         CalibrationError::Autocorrelation { .. } => ("autocorrelation-fit-failed", None),
         CalibrationError::Equipartition { .. } => ("equipartition-failed", None),
         CalibrationError::ConstantSignal { .. } => ("constant-signal", None),
+        CalibrationError::PrincipalAxes { .. } => (
+            "principal-axes-not-applicable",
+            Some("principal_axes".into()),
+        ),
     }
 }
 
