@@ -69,7 +69,8 @@ impl Tally {
         self.z / f64::from(self.n)
     }
     fn sd_z(&self) -> f64 {
-        (self.z2 / f64::from(self.n) - self.mean_z().powi(2)).sqrt()
+        let m = self.mean_z();
+        m.mul_add(-m, self.z2 / f64::from(self.n)).sqrt()
     }
     fn mean_rel(&self) -> f64 {
         self.rel / f64::from(self.n)

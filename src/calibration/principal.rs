@@ -34,7 +34,7 @@
 use crate::autocorrelation::autocovariance;
 use crate::estimate::Estimate;
 use statrs::distribution::{ContinuousCDF, Normal};
-use std::f64::consts::FRAC_PI_4;
+use std::f64::consts::{FRAC_PI_2, FRAC_PI_4};
 
 /// False-alarm rate of the coupling test per pair of axes (two-sided): one recording of
 /// uncoupled axes in a thousand is reported as coupled.
@@ -98,7 +98,7 @@ fn lag_product_sum(acov_x: &[f64], acov_y: &[f64], n_samples: usize) -> f64 {
         .map(|(k, (gx, gy))| (1.0 - k as f64 / n) * gx * gy)
         .sum();
     match (acov_x.first(), acov_y.first()) {
-        (Some(gx), Some(gy)) => gx * gy + 2.0 * tail,
+        (Some(gx), Some(gy)) => 2.0f64.mul_add(tail, gx * gy),
         _ => f64::NAN,
     }
 }
@@ -152,9 +152,9 @@ pub fn correlation(x: &[f64], y: &[f64], acov_x: &[f64], acov_y: &[f64]) -> Opti
 pub fn diagonalising_angle(a: f64, b: f64, c: f64) -> f64 {
     let major = 0.5 * (2.0 * c).atan2(a - b);
     if major > FRAC_PI_4 {
-        major - 2.0 * FRAC_PI_4
+        major - FRAC_PI_2
     } else if major < -FRAC_PI_4 {
-        major + 2.0 * FRAC_PI_4
+        major + FRAC_PI_2
     } else {
         major
     }

@@ -48,8 +48,8 @@ fn the_diagonalising_angle_recovers_a_known_rotation_of_a_covariance() {
     ] {
         let t: f64 = f64::to_radians(deg);
         let (s, c) = t.sin_cos();
-        let a = l1 * c * c + l2 * s * s;
-        let b = l1 * s * s + l2 * c * c;
+        let a = (l1 * c).mul_add(c, l2 * s * s);
+        let b = (l1 * s).mul_add(s, l2 * c * c);
         let cxy = (l1 - l2) * s * c;
         let expected = if deg > 45.0 { deg - 90.0 } else { deg };
         let got = diagonalising_angle(a, b, cxy).to_degrees();
@@ -162,7 +162,7 @@ fn the_principal_angle_of_a_turned_trap_is_unbiased_with_an_honest_error() {
     let k = f64::from(seeds);
     let mean_z = zsum / k;
     let bias_deg = (dsum / k).to_degrees();
-    let sd = (d2sum / k - (dsum / k).powi(2)).sqrt();
+    let sd = (dsum / k).mul_add(-(dsum / k), d2sum / k).sqrt();
     let se = se_sum / k;
     println!(
         "angle: bias {bias_deg:.4} deg, sd {:.4} deg, mean se {:.4} deg, sd/se {:.4}, mean z {mean_z:.4}, worst |z| {worst:.2}",
