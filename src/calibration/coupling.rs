@@ -11,6 +11,7 @@ use crate::drag::AxisOrientation;
 use crate::equipartition::detrended;
 use crate::findings::{self, CouplingInputs};
 use crate::recording::{AxisTrace, PositionUnit, Recording};
+use crate::spectrum::{SpectralLine, subtract_lines};
 use std::borrow::Cow;
 
 fn refuse(reason: String) -> CalibrationError {
@@ -91,10 +92,14 @@ pub(crate) fn axes_to_calibrate<'a>(
     ))
 }
 
-/// The correlation of every pair of `axes` (detrended as equipartition detrends them), with
-/// the principal angle of each significant pair of nanometre data.
+/// The correlation of every pair of `axes` (detrended as equipartition detrends them, and
+/// without the sinusoids the calibration fitted and subtracted on each axis, `lines[i]`: a
+/// pickup line common to two channels is not a coupling of the trap), with the principal angle
+/// of each significant pair of nanometre data.
 pub(crate) fn measure(
     axes: &[AxisTrace],
+    lines: &[&[SpectralLine]],
+    sample_rate_hz: f64,
     unit: PositionUnit,
     options: &AnalysisOptions,
 ) -> Vec<AxisCoupling> {
@@ -103,7 +108,12 @@ pub(crate) fn measure(
     }
     let prepared: Vec<Vec<f64>> = axes
         .iter()
-        .map(|a| detrended(&a.samples, options.detrend))
+        .zip(lines)
+        .map(|(a, l)| {
+            let mut y = detrended(&a.samples, options.detrend);
+            subtract_lines(&mut y, sample_rate_hz, l);
+            y
+        })
         .collect();
     let acov: Vec<Vec<f64>> = prepared
         .iter()

@@ -121,7 +121,10 @@ fn a_turned_trap_is_reported_coupled_and_calibrated_right_along_its_principal_ax
         let rotation = rotated.principal_axes.as_ref().expect("rotation reported");
         assert_eq!(rotation.rotated_axes, ["x'".to_string(), "y'".to_string()]);
         assert_eq!(rotated.axes[0].axis, "x'");
-        assert!((rotation.angle_rad.value - angle.value).abs() < 1e-12);
+        // The rotation's angle is taken from the record as given, the reported one after the
+        // lines the calibration subtracted (on thermal records, rare small false peaks): the
+        // same to a small part of its se.
+        assert!((rotation.angle_rad.value - angle.value).abs() < 0.1 * angle.se);
         assert!(!rotated.coupling[0].significant, "{:?}", rotated.coupling);
         assert!(!rotated.axes.iter().any(has_coupling_finding));
         stiff.add(rotated.axes[0].stiffness_pn_per_nm.consensus, 0.06);
@@ -257,4 +260,63 @@ fn principal_axes_turn_only_the_lateral_plane_and_need_two_lateral_axes() {
     );
     let err = calibrate(&one, &conditions(), &plain(true)).expect_err("refused");
     assert!(err.to_string().contains("1 lateral (x)"), "{err}");
+}
+
+#[test]
+fn a_pickup_line_common_to_both_channels_neither_fakes_nor_hides_a_coupling() {
+    // The same 50 Hz sinusoid of 20 nm added to both channels (a pickup line) of (a) two
+    // independent exact AR(1) axes along the detector's and (b) the turned trap of the test
+    // above (kappa 0.06 and 0.03 pN/nm, 20 degrees), 100 kHz, 2^15 samples, seed 71. On the raw
+    // records the line's long autocovariance inflates the null se of the correlation by an
+    // order of magnitude, so a turned trap would go unseen; the calibration fits and subtracts
+    // the line on each axis, and the coupling is measured without it: (a) |z| < 4 (fails with
+    // probability 6e-5 under independence), no finding; (b) the finding, with the angle within
+    // 5 se of 20 degrees.
+    let (fc1, var1) = ou_truth(0.06);
+    let (fc2, var2) = ou_truth(0.03);
+    let n = 1 << 15;
+    let mut rng = generator(71);
+    let line = |j: usize| 20.0 * (2.0 * std::f64::consts::PI * 50.0 * j as f64 / FS + 0.3).sin();
+    let with_line = |mut v: Vec<f64>| {
+        for (j, s) in v.iter_mut().enumerate() {
+            *s += line(j);
+        }
+        v
+    };
+    let x = with_line(ou_series(fc1, var1, FS, n, &mut rng));
+    let y = with_line(ou_series(fc2, var2, FS, n, &mut rng));
+    let rec = recording(PositionUnit::Nanometre, vec![("x", x), ("y", y)]);
+    let cal = calibrate(&rec, &conditions(), &plain(false)).expect("calibrates");
+    assert!(cal.axes.iter().all(|a| !a.lines_removed.is_empty()));
+    let pair = &cal.coupling[0];
+    assert!(pair.z.abs() < 4.0, "{pair:?}");
+    assert!(!cal.axes.iter().any(has_coupling_finding));
+
+    let truth = 20f64.to_radians();
+    let (x, y) = turned_pair(truth, n, FS, &mut rng);
+    let (x, y) = (with_line(x), with_line(y));
+    let raw = principal::correlation(
+        &x,
+        &y,
+        &principal::axis_autocovariance(&x),
+        &principal::axis_autocovariance(&y),
+    )
+    .expect("usable");
+    let rec = recording(PositionUnit::Nanometre, vec![("x", x), ("y", y)]);
+    let cal = calibrate(&rec, &conditions(), &plain(false)).expect("calibrates");
+    let pair = &cal.coupling[0];
+    println!(
+        "turned trap with a common line: raw r {:.3} ± {:.3} (z {:.1}); without the lines r {:.3} ± {:.3} (z {:.1})",
+        raw.coefficient.value,
+        raw.coefficient.se,
+        raw.z,
+        pair.correlation.value,
+        pair.correlation.se,
+        pair.z
+    );
+    assert!(raw.coefficient.se > 10.0 * pair.correlation.se, "{raw:?}");
+    assert!(pair.significant, "{pair:?}");
+    let angle = pair.principal_angle_rad.expect("angle");
+    assert!(((angle.value - truth) / angle.se).abs() < 5.0, "{angle:?}");
+    assert!(cal.axes.iter().all(has_coupling_finding));
 }

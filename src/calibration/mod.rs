@@ -438,7 +438,15 @@ pub fn calibrate(
     }
     .into_iter()
     .collect::<Result<Vec<_>, _>>()?;
-    let coupling = coupling::measure(&traces, recording.unit, options);
+    let lines: Vec<&[spectrum::SpectralLine]> =
+        axes.iter().map(|a| a.lines_removed.as_slice()).collect();
+    let coupling = coupling::measure(
+        &traces,
+        &lines,
+        recording.sample_rate_hz,
+        recording.unit,
+        options,
+    );
     coupling::add_findings(&mut axes, &coupling, recording.unit, options);
     Ok(Calibration {
         physics,
