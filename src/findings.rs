@@ -513,6 +513,8 @@ pub struct CouplingInputs<'a> {
     pub angle_deg: Option<Estimate>,
     /// Whether both axes are lateral, so that `principal_axes` would rotate this plane.
     pub both_lateral: bool,
+    /// Whether these two axes are already the principal axes `principal_axes` turned to.
+    pub already_rotated: bool,
 }
 
 /// Two axes whose positions are correlated beyond the false-alarm limit: in nanometres the
@@ -538,7 +540,10 @@ pub fn axes_coupled(inp: &CouplingInputs<'_>) -> Finding {
             } else {
                 ""
             };
-            let remedy = if inp.both_lateral {
+            let remedy = if inp.already_rotated {
+                "these axes were already turned to the principal axes measured on the record as given, before the calibration subtracted its lines, so a disturbance common to both channels (a pickup line, drift) turned that measurement: remove it at its source and calibrate again"
+                    .to_string()
+            } else if inp.both_lateral {
                 "calibrate along the principal axes with --principal-axes (setting principal_axes)"
                     .to_string()
             } else {

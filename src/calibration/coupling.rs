@@ -145,14 +145,18 @@ pub(crate) fn measure(
     out
 }
 
-/// Adds an `axes-coupled` finding to both axes of every significant pair.
+/// Adds an `axes-coupled` finding to both axes of every significant pair; `rotation` is the
+/// turn `principal_axes` made, if any.
 pub(crate) fn add_findings(
     axes: &mut [AxisCalibration],
     coupling: &[AxisCoupling],
     unit: PositionUnit,
     options: &AnalysisOptions,
+    rotation: Option<&PrincipalRotation>,
 ) {
     for pair in coupling.iter().filter(|p| p.significant) {
+        let rotated =
+            |name: &str| rotation.is_some_and(|r| r.rotated_axes.iter().any(|n| n == name));
         let lateral =
             |name: &str| orientation_of(name, &options.axial_axes) == AxisOrientation::Lateral;
         let finding = findings::axes_coupled(&CouplingInputs {
@@ -167,6 +171,7 @@ pub(crate) fn add_findings(
                 .principal_angle_rad
                 .map(|a| Estimate::new(a.value.to_degrees(), a.se.to_degrees())),
             both_lateral: lateral(&pair.first) && lateral(&pair.second),
+            already_rotated: rotated(&pair.first) && rotated(&pair.second),
         });
         for axis in axes
             .iter_mut()

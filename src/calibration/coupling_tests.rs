@@ -319,4 +319,21 @@ fn a_pickup_line_common_to_both_channels_neither_fakes_nor_hides_a_coupling() {
     let angle = pair.principal_angle_rad.expect("angle");
     assert!(((angle.value - truth) / angle.se).abs() < 5.0, "{angle:?}");
     assert!(cal.axes.iter().all(has_coupling_finding));
+
+    // principal_axes measures its angle on the record as given: the common line (variance
+    // 200 nm^2 in both channels, covariance 200 nm^2) turns it towards 45 degrees, and the
+    // rotated pair, measured without the line, is still coupled; the finding says why.
+    let rotated = calibrate(&rec, &conditions(), &plain(true)).expect("calibrates");
+    let turn = rotated.principal_axes.as_ref().expect("rotation").angle_rad;
+    println!(
+        "rotation with the line: {:.1} degrees",
+        turn.value.to_degrees()
+    );
+    assert!(rotated.coupling[0].significant, "{:?}", rotated.coupling);
+    let f = rotated.axes[0]
+        .findings
+        .iter()
+        .find(|f| f.code == "axes-coupled")
+        .expect("finding");
+    assert!(f.message.contains("already turned"), "{}", f.message);
 }

@@ -447,7 +447,13 @@ pub fn calibrate(
         recording.unit,
         options,
     );
-    coupling::add_findings(&mut axes, &coupling, recording.unit, options);
+    coupling::add_findings(
+        &mut axes,
+        &coupling,
+        recording.unit,
+        options,
+        rotation.as_ref(),
+    );
     Ok(Calibration {
         physics,
         axes,
