@@ -18,8 +18,8 @@
 //! a cross-correlation of two autocorrelated series (M. S. Bartlett, J. R. Stat. Soc. 98, 536
 //! (1935); also G. E. P. Box, G. M. Jenkins & G. C. Reinsel, Time Series Analysis, section on
 //! cross-correlation; both recalled from memory, unverified; the derivation above is this
-//! module's own). The sums use the sample autocovariances up to `MAX_LAG` lags, whose products
-//! are unbiased under independence.
+//! module's own). The sums use the sample autocovariances up to `MAX_LAG` lags of the first
+//! `VARIANCE_RECORD` samples, whose products are unbiased under independence.
 //!
 //! Angle. With C = [[a, c], [c, b]] the angle of the major axis from the first axis towards the
 //! second is phi = atan2(2c, a - b) / 2; the rotation reported is the one of at most 45 degrees
@@ -45,6 +45,13 @@ pub const COUPLING_FALSE_ALARM: f64 = 1e-3;
 /// cover relaxation times of thousands of samples (an fc of a few hertz at 100 kHz), and the
 /// noise they add is a relative sqrt(MAX_LAG tau) / N of the sum (tau in samples).
 pub const MAX_LAG: usize = 1 << 15;
+
+/// Samples from the start of the record whose autocovariances estimate the variance sums. The
+/// sums are properties of the process, not of the record's length: 2^17 samples estimate them
+/// to a relative sqrt(tau / 2^17) (about 1.5 % for tau of 28 samples), and the variances they
+/// give are then divided by the whole record's length. Longer records would only make the
+/// transforms dearer (on 2^20 samples the whole-record sums cost about half a calibration).
+pub const VARIANCE_RECORD: usize = 1 << 17;
 
 /// Fewest samples the coupling is measured on (below it the normal approximation of the test
 /// is poor).
@@ -81,15 +88,18 @@ pub fn is_significant(z: f64) -> bool {
     z.abs() > critical_z(COUPLING_FALSE_ALARM)
 }
 
-/// The autocovariance of one axis for the variance sums (`MAX_LAG` lags at most), signal units
-/// squared, normalised by the count of products per lag.
+/// The autocovariance of one axis for the variance sums (`MAX_LAG` lags at most, from the
+/// first `VARIANCE_RECORD` samples), signal units squared, normalised by the count of products
+/// per lag.
 pub fn axis_autocovariance(samples: &[f64]) -> Vec<f64> {
-    autocovariance(samples, MAX_LAG)
+    autocovariance(&samples[..samples.len().min(VARIANCE_RECORD)], MAX_LAG)
 }
 
 /// sum_{|k|<N} (1 - |k|/N) gx(k) gy(k) over the lags both autocovariances hold.
+/// `n_samples` is the whole record's length; the weights are those of the part the
+/// autocovariances were taken from.
 fn lag_product_sum(acov_x: &[f64], acov_y: &[f64], n_samples: usize) -> f64 {
-    let n = n_samples as f64;
+    let n = n_samples.min(VARIANCE_RECORD) as f64;
     let tail: f64 = acov_x
         .iter()
         .zip(acov_y)
@@ -182,10 +192,16 @@ pub fn principal_angle(x: &[f64], y: &[f64]) -> Option<PrincipalAngle> {
         return None;
     }
     let angle = diagonalising_angle(a, b, c);
-    let (u, v) = rotate(x, y, angle);
-    let [lu, lv, _] = second_moments(&u, &v);
+    // The variances along the turned axes, from the covariance (u = x cos + y sin).
+    let (s, co) = angle.sin_cos();
+    let cross = 2.0 * s * co * c;
+    let lu = (co * co).mul_add(a, (s * s).mul_add(b, cross));
+    let lv = (s * s).mul_add(a, (co * co).mul_add(b, -cross));
+    // Only the part the variance sums use is turned.
+    let m = x.len().min(VARIANCE_RECORD);
+    let (u, v) = rotate(&x[..m], &y[..m], angle);
     let (acov_u, acov_v) = (axis_autocovariance(&u), axis_autocovariance(&v));
-    let cross_var = lag_product_sum(&acov_u, &acov_v, u.len()) / u.len() as f64;
+    let cross_var = lag_product_sum(&acov_u, &acov_v, x.len()) / x.len() as f64;
     let se = cross_var.max(0.0).sqrt() / (lu - lv).abs();
     Some(PrincipalAngle {
         angle_rad: Estimate::new(angle, se),
