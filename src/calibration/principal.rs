@@ -24,7 +24,7 @@
 //! Angle. With C = [[a, c], [c, b]] the angle of the major axis from the first axis towards the
 //! second is phi = atan2(2c, a - b) / 2; the rotation reported is the one of at most 45 degrees
 //! in size, so each rotated axis is the principal axis nearest a detector axis. Its standard
-//! error is first-order eigenvector perturbation (standard linear algebra): in the principal
+//! error is first-order eigenvector perturbation (common practice, no source): in the principal
 //! frame (u, v) the angle moves by c_uv / (l_u - l_v), and c_uv, the sample cross-covariance of
 //! two independent series, has the variance above. Near a round trap (l_u close to l_v) the
 //! angle is undetermined and its standard error says so.
