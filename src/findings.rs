@@ -589,3 +589,65 @@ impl FindingInputs<'_> {
         v.is_finite().then_some(v)
     }
 }
+
+/// What the coupling finding says about one pair of axes: plain numbers from the calibration.
+pub struct CouplingInputs<'a> {
+    pub first: &'a str,
+    pub second: &'a str,
+    pub unit: PositionUnit,
+    /// Zero-lag correlation coefficient, with its standard error were the axes independent.
+    pub correlation: Estimate,
+    pub z: f64,
+    /// The two-sided limit on |z| and its false-alarm rate.
+    pub critical_z: f64,
+    pub false_alarm: f64,
+    /// Rotation from the two axes to the principal axes of their plane, degrees, with its
+    /// standard error (nanometre data only).
+    pub angle_deg: Option<Estimate>,
+    /// Whether both axes are lateral, so that `principal_axes` would rotate this plane.
+    pub both_lateral: bool,
+    /// Whether these two axes are already the principal axes `principal_axes` turned to.
+    pub already_rotated: bool,
+}
+
+/// Two axes whose positions are correlated beyond the false-alarm limit: in nanometres the
+/// trap's principal axes are turned against the detector's, so each axis mixes two stiffnesses
+/// (the finding gives the angle and names the setting that calibrates along them); in volts the
+/// correlation may as well be crosstalk between the detector's channels.
+pub fn axes_coupled(inp: &CouplingInputs<'_>) -> Finding {
+    let (a, b) = (inp.first, inp.second);
+    let head = format!(
+        "axes {a} and {b} are correlated (r = {:.3}, standard error {:.3} were they independent; |z| = {:.1} is beyond {:.2}, the {} % false-alarm limit)",
+        inp.correlation.value,
+        inp.correlation.se,
+        inp.z.abs(),
+        inp.critical_z,
+        inp.false_alarm * 100.0
+    );
+    let body = match (inp.unit, inp.angle_deg) {
+        (PositionUnit::Volt, _) => "in volts this is either crosstalk between the detector's channels or a trap whose principal axes are turned against the detector's, which cannot be told apart before each axis's sensitivity is known; if the trap is turned, each axis mixes two stiffnesses and every method calibrates a value between them; principal_axes needs nanometre data: convert each axis with its sensitivity and calibrate the nanometre record with --principal-axes (setting principal_axes)".to_string(),
+        (PositionUnit::Nanometre, None) => "the principal axes of this plane could not be found".to_string(),
+        (PositionUnit::Nanometre, Some(angle)) => {
+            let round = if angle.se > 10.0 {
+                " (the trap is nearly round in this plane: the angle is poorly determined and the mixing matters little)"
+            } else {
+                ""
+            };
+            let remedy = if inp.already_rotated {
+                "these axes were already turned to the principal axes measured on the record as given, before the calibration subtracted its lines, so a disturbance common to both channels (a pickup line, drift) turned that measurement: remove it at its source and calibrate again"
+                    .to_string()
+            } else if inp.both_lateral {
+                "calibrate along the principal axes with --principal-axes (setting principal_axes)"
+                    .to_string()
+            } else {
+                "principal_axes turns only the lateral plane, so align the detector with the trap's axes or name the axial axes correctly (setting axial_axes)"
+                    .to_string()
+            };
+            format!(
+                "the trap's principal axes are turned {:.1} ± {:.1} degrees (from {a} towards {b}) against the detector axes{round}, so each axis mixes two stiffnesses and every method calibrates a value between them; {remedy}",
+                angle.value, angle.se
+            )
+        }
+    };
+    finding("axes-coupled", Severity::Warning, format!("{head}: {body}"))
+}

@@ -11,12 +11,18 @@ mod axis;
 mod camera_blur_tests;
 mod conditions;
 pub mod consensus;
+mod coupling;
+#[cfg(test)]
+mod coupling_tests;
 mod covariance;
 mod drift;
 #[cfg(test)]
 mod drift_tests;
 #[cfg(test)]
 mod exclusion_tests;
+pub mod principal;
+#[cfg(test)]
+mod principal_tests;
 mod propagation;
 #[cfg(test)]
 mod real_instrument_tests;
@@ -116,6 +122,10 @@ pub struct AnalysisOptions {
     pub exclude_peaks: bool,
     /// Names of axes moving perpendicular to the surface (default `z`).
     pub axial_axes: Vec<String>,
+    /// Calibrate the two lateral axes along the trap's principal axes in their plane (the
+    /// samples rotated by the measured angle) instead of along the detector's axes; nanometre
+    /// data only.
+    pub principal_axes: bool,
 }
 
 impl Default for AnalysisOptions {
@@ -131,6 +141,7 @@ impl Default for AnalysisOptions {
             target_relative_precision: 0.05,
             exclude_peaks: true,
             axial_axes: vec!["z".to_string()],
+            principal_axes: false,
         }
     }
 }
@@ -185,6 +196,9 @@ pub enum CalibrationError {
         "axis `{axis}`: all {n_samples} samples have the same value; the detector saw no motion (check that the bead is trapped and the signal connected)"
     )]
     ConstantSignal { axis: String, n_samples: usize },
+    /// The setting `principal_axes` cannot apply to this recording.
+    #[error("setting `principal_axes`: {reason}")]
+    PrincipalAxes { reason: String },
 }
 
 /// Quantities derived from the run conditions.
@@ -285,11 +299,46 @@ pub struct AxisCalibration {
     pub lines_removed: Vec<spectrum::SpectralLine>,
 }
 
+/// The zero-lag correlation of two axes as calibrated, and what it says about the trap's
+/// principal axes (see `principal`).
+#[derive(Clone, Debug, PartialEq)]
+pub struct AxisCoupling {
+    pub first: String,
+    pub second: String,
+    /// Correlation coefficient, with its standard error were the axes independent.
+    pub correlation: Estimate,
+    /// Correlation over that standard error.
+    pub z: f64,
+    /// Whether |z| exceeds the two-sided limit of `principal::COUPLING_FALSE_ALARM`.
+    pub significant: bool,
+    /// For significant couplings of nanometre data: the rotation, rad, from these two axes to
+    /// the principal axes of their plane (from `first` towards `second`), with its standard
+    /// error.
+    pub principal_angle_rad: Option<Estimate>,
+}
+
+/// The rotation applied with `principal_axes`: which detector axes were replaced by which
+/// principal axes, and the angle between them.
+#[derive(Clone, Debug, PartialEq)]
+pub struct PrincipalRotation {
+    pub detector_axes: [String; 2],
+    /// Names of the rotated axes (the detector names primed: `x'` is the principal axis nearest
+    /// `x`).
+    pub rotated_axes: [String; 2],
+    /// Rotation from the detector axes to the principal axes, rad (from the first towards the
+    /// second, at most pi/4 in size), with its standard error.
+    pub angle_rad: Estimate,
+}
+
 /// The calibration of a whole recording.
 #[derive(Clone, Debug)]
 pub struct Calibration {
     pub physics: Physics,
     pub axes: Vec<AxisCalibration>,
+    /// Every pair of the calibrated axes (none for one axis).
+    pub coupling: Vec<AxisCoupling>,
+    /// The rotation used when `principal_axes` was asked for.
+    pub principal_axes: Option<PrincipalRotation>,
 }
 
 fn check_positive(field: &'static str, value: f64) -> Result<(), CalibrationError> {
@@ -406,6 +455,7 @@ pub fn calibrate(
         });
     }
     let physics = physics(conditions)?;
+    let (traces, rotation) = coupling::axes_to_calibrate(recording, options)?;
     let one_axis = |axis: &crate::recording::AxisTrace| {
         axis::calibrate_axis(&axis::AxisInput {
             name: &axis.name,
@@ -419,7 +469,7 @@ pub fn calibrate(
     };
     // The axes are independent: each runs on its own scoped thread (the first here), and the
     // results are taken in axis order, so the first failing axis is reported as in one pass.
-    let axes = match recording.axes.split_first() {
+    let mut axes = match traces.split_first() {
         Some((first, rest)) if !rest.is_empty() => std::thread::scope(|scope| {
             let others: Vec<_> = rest
                 .iter()
@@ -432,11 +482,32 @@ pub fn calibrate(
             }
             results
         }),
-        _ => recording.axes.iter().map(one_axis).collect(),
+        _ => traces.iter().map(one_axis).collect(),
     }
     .into_iter()
     .collect::<Result<Vec<_>, _>>()?;
-    Ok(Calibration { physics, axes })
+    let lines: Vec<&[spectrum::SpectralLine]> =
+        axes.iter().map(|a| a.lines_removed.as_slice()).collect();
+    let coupling = coupling::measure(
+        &traces,
+        &lines,
+        recording.sample_rate_hz,
+        recording.unit,
+        options,
+    );
+    coupling::add_findings(
+        &mut axes,
+        &coupling,
+        recording.unit,
+        options,
+        rotation.as_ref(),
+    );
+    Ok(Calibration {
+        physics,
+        axes,
+        coupling,
+        principal_axes: rotation,
+    })
 }
 
 /// Segments of about 2^18 samples: long enough that the segment-end leakage of the periodogram

@@ -318,6 +318,10 @@ fn calibration_code(e: &CalibrationError) -> (&'static str, Option<String>) {
         CalibrationError::InvalidExposure { .. } => {
             ("invalid-exposure", Some("exposure_time_s".into()))
         }
+        CalibrationError::PrincipalAxes { .. } => (
+            "principal-axes-not-applicable",
+            Some("principal_axes".into()),
+        ),
     }
 }
 

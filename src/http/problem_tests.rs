@@ -63,3 +63,34 @@ fn an_exposure_longer_than_the_frame_is_a_422_naming_the_exposure_field() {
         other => panic!("{other:?}"),
     }
 }
+
+#[test]
+fn principal_axes_refused_for_volt_data_names_the_setting() {
+    // A two-axis volt recording with principal_axes: the core refuses it (a rotation of volts
+    // is not a rotation of positions); the problem is a 422 naming the setting's field.
+    use crate::calibration::{AnalysisOptions, calibrate};
+    use crate::recording::{AxisTrace, PositionUnit, Recording};
+    let axis = |name: &str, k: f64| AxisTrace {
+        name: name.into(),
+        samples: (0..256).map(|i| (f64::from(i) * k).sin()).collect(),
+    };
+    let recording = Recording {
+        sample_rate_hz: 10_000.0,
+        unit: PositionUnit::Volt,
+        axes: vec![axis("x", 0.3), axis("y", 0.7)],
+    };
+    let options = AnalysisOptions {
+        principal_axes: true,
+        ..Default::default()
+    };
+    let refused =
+        calibrate(&recording, &RunConditions::new(1e-6, 25.0), &options).expect_err("refused");
+    match AppError::from(PipelineError::Calibration(refused)) {
+        AppError::Unprocessable { code, field, .. } => {
+            assert_eq!(code, "principal-axes-not-applicable");
+            assert_eq!(field.as_deref(), Some("principal_axes"));
+            assert!(KEYS.contains(&"principal_axes"));
+        }
+        other => panic!("{other:?}"),
+    }
+}

@@ -11,7 +11,9 @@ mod tests;
 
 pub use summary::summary_table;
 
-use crate::calibration::{AnalysisOptions, AxisCalibration, Calibration, Estimate, RunConditions};
+use crate::calibration::{
+    AnalysisOptions, AxisCalibration, AxisCoupling, Calibration, Estimate, RunConditions,
+};
 use crate::drag::AxisOrientation;
 use crate::equipartition::Detrend;
 use crate::recording::{PositionUnit, Recording};
@@ -58,6 +60,41 @@ pub struct CalibrationReport {
     /// wall-corrected drag.
     pub drag_pn_s_per_nm: ValueSe,
     pub axes: Vec<AxisReport>,
+    /// The zero-lag correlation of every pair of calibrated axes (empty for one axis).
+    #[serde(default)]
+    pub axes_coupling: Vec<CouplingReport>,
+    /// The rotation to the trap's principal axes, when `principal_axes` was asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub principal_axes: Option<PrincipalAxesReport>,
+}
+
+/// The correlation of two axes.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct CouplingReport {
+    pub first: String,
+    pub second: String,
+    /// Zero-lag correlation coefficient; its `se` is the one it would have were the axes
+    /// independent (Bartlett's formula).
+    pub correlation: ValueSe,
+    /// correlation / se.
+    pub z: f64,
+    /// |z| beyond the two-sided limit of `false_alarm_rate`.
+    pub significant: bool,
+    pub false_alarm_rate: f64,
+    /// Rotation from these axes to the principal axes of their plane, degrees, from `first`
+    /// towards `second`; for significant pairs of nanometre data, otherwise null.
+    pub principal_angle_deg: Option<ValueSe>,
+}
+
+/// Which detector axes were replaced by the trap's principal axes, and the angle.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct PrincipalAxesReport {
+    pub detector_axes: [String; 2],
+    /// The names the rotated axes carry in `axes` (`x'` is the principal axis nearest `x`).
+    pub rotated_axes: [String; 2],
+    /// Rotation from the detector axes to the principal axes, degrees, from the first detector
+    /// axis towards the second (at most 45 in size).
+    pub angle_deg: ValueSe,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -127,6 +164,9 @@ pub struct OptionsInfo {
     pub exclude_peaks: bool,
     pub target_relative_precision: f64,
     pub axial_axes: Vec<String>,
+    /// Whether the lateral axes were calibrated along the trap's principal axes.
+    #[serde(default)]
+    pub principal_axes: bool,
 }
 
 /// The calibration of one axis.
@@ -402,6 +442,7 @@ pub fn build(
             exclude_peaks: options.exclude_peaks,
             target_relative_precision: options.target_relative_precision,
             axial_axes: options.axial_axes.clone(),
+            principal_axes: options.principal_axes,
         },
         thermal_energy_pn_nm: phys.thermal_energy_j * 1e21,
         drag_pn_s_per_nm: scaled(phys.stokes_drag_kg_per_s, 1e3),
@@ -410,6 +451,34 @@ pub fn build(
             .iter()
             .map(|a| axis_report(a, recording.unit, options, with_plots))
             .collect(),
+        axes_coupling: calibration.coupling.iter().map(coupling_report).collect(),
+        principal_axes: calibration
+            .principal_axes
+            .as_ref()
+            .map(|r| PrincipalAxesReport {
+                detector_axes: r.detector_axes.clone(),
+                rotated_axes: r.rotated_axes.clone(),
+                angle_deg: degrees(r.angle_rad),
+            }),
+    }
+}
+
+fn degrees(e: Estimate) -> ValueSe {
+    ValueSe {
+        value: e.value.to_degrees(),
+        se: e.se.to_degrees(),
+    }
+}
+
+fn coupling_report(c: &AxisCoupling) -> CouplingReport {
+    CouplingReport {
+        first: c.first.clone(),
+        second: c.second.clone(),
+        correlation: c.correlation.into(),
+        z: c.z,
+        significant: c.significant,
+        false_alarm_rate: crate::calibration::principal::COUPLING_FALSE_ALARM,
+        principal_angle_deg: c.principal_angle_rad.map(degrees),
     }
 }
 

@@ -51,6 +51,19 @@ pub fn summary_table(r: &CalibrationReport) -> String {
         r.thermal_energy_pn_nm,
         r.drag_pn_s_per_nm.value
     );
+    if let Some(p) = &r.principal_axes {
+        let _ = writeln!(
+            s,
+            "axes {} and {} calibrated along the trap's principal axes {} and {}, turned {} degrees from {} towards {}",
+            p.detector_axes[0],
+            p.detector_axes[1],
+            p.rotated_axes[0],
+            p.rotated_axes[1],
+            pm(&p.angle_deg),
+            p.detector_axes[0],
+            p.detector_axes[1]
+        );
+    }
     let _ = writeln!(s);
     let header = [
         "axis",

@@ -284,6 +284,9 @@ impl Settings {
         if let Some(a) = self.names("axial_axes") {
             analysis.axial_axes = a.to_vec();
         }
+        if let Some(p) = self.boolean("principal_axes") {
+            analysis.principal_axes = p;
+        }
         if let Some(p) = self.number("precision_percent") {
             analysis.target_relative_precision = p / 100.0;
         }

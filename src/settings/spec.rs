@@ -688,6 +688,21 @@ pub const SPECS: &[SettingSpec] = &[
         },
     },
     SettingSpec {
+        key: "principal_axes",
+        label: "Principal axes",
+        kind: Kind::Boolean,
+        unit: "",
+        help: "Calibrate the two lateral axes along the trap's principal axes (the detector \
+               axes turned by the angle measured from the position covariance) instead of \
+               along the detector's axes; nanometre data only.",
+        absent: Absent::Default("false"),
+        example: "true",
+        flag: Flag::Switch {
+            long: "principal-axes",
+            sets: "true",
+        },
+    },
+    SettingSpec {
         key: "precision_percent",
         label: "Target precision",
         kind: Kind::Number(Range::Positive),
