@@ -1,6 +1,9 @@
 //! Speed of one calibration against the FFT floor: parse and calibrate one axis of 2^22 f32
 //! samples end to end, next to one real-input FFT of the same length (plan included, as a fresh
-//! process pays it too) in the same run. Run with `cargo bench --bench calibrate`.
+//! process pays it too) in the same run; and, at 2^20 samples, the calibration of one axis under
+//! the default model (frequency-dependent drag on) against the plain model it replaced as the
+//! default, in the same run (the target: at most 1.5 times). Run with
+//! `cargo bench --bench calibrate`.
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use std::hint::black_box;
@@ -82,5 +85,39 @@ fn bench(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, bench);
+/// One axis of 2^20 samples calibrated with the drag modelled (the run settings' default) and
+/// without it, from the same recording in the same run.
+fn bench_default_model(c: &mut Criterion) {
+    use trapwise::calibration::{AnalysisOptions, RunConditions, calibrate};
+    let n = 1 << 20;
+    let axes = [OuAxis {
+        name: "x".into(),
+        corner_frequency_hz: 950.0,
+        variance: 1e-4,
+    }];
+    let samples = simulate_axes(&axes, FS, n, 1, &Disturbances::default()).remove(0);
+    let recording = Recording {
+        sample_rate_hz: FS,
+        unit: PositionUnit::Volt,
+        axes: vec![AxisTrace {
+            name: "x".into(),
+            samples,
+        }],
+    };
+    let conditions = RunConditions::new(1e-6, 25.0);
+    let mut group = c.benchmark_group("one axis, 2^20 samples, calibrate");
+    group.sample_size(10);
+    for (name, hydrodynamics) in [("plain model", false), ("default model (drag on)", true)] {
+        let options = AnalysisOptions {
+            hydrodynamics,
+            ..AnalysisOptions::default()
+        };
+        group.bench_function(name, |b| {
+            b.iter(|| black_box(calibrate(&recording, &conditions, &options).expect("calibrates")))
+        });
+    }
+    group.finish();
+}
+
+criterion_group!(benches, bench, bench_default_model);
 criterion_main!(benches);
