@@ -50,6 +50,7 @@ fn bench(c: &mut Criterion) {
         aliasing: true,
         filter,
         hydro,
+        noise_floor: false,
     };
     let acov_plain = acov_of(&spectrum(FilterSetting::None, None));
     let acov_filtered = acov_of(&spectrum(FilterSetting::Fixed(FILTER), None));

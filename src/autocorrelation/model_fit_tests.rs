@@ -482,6 +482,7 @@ fn filtered_fit_is_unbiased_with_honest_errors_and_the_exponential_fit_is_not() 
         aliasing: true,
         filter: FilterSetting::Fixed(FILTER),
         hydro: None,
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let table = spectrum_table(|f| spectrum.one_sided_psd(f, &theta), fs, n_samples);
@@ -544,6 +545,7 @@ fn hydrodynamic_fit_is_unbiased_with_honest_errors() {
         aliasing: true,
         filter: FilterSetting::None,
         hydro: Some(hydro),
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let table = spectrum_table(|f| spectrum.one_sided_psd(f, &theta), fs, n_samples);

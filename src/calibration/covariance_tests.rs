@@ -86,6 +86,7 @@ fn closed_form_model() -> SpectrumModel {
         aliasing: true,
         filter: FilterSetting::None,
         hydro: None,
+        noise_floor: false,
     }
 }
 
@@ -130,6 +131,7 @@ fn check_fast_matches_reference(
         tau_influence: &tau_influence,
         relaxation_time_s: 1.0 / (2.0 * PI * FC),
         variance: SIGMA2,
+        noise_floor: None,
     };
     let fast = log_covariance(&inp);
     let reference = reference_log_covariance(&inp);
@@ -281,6 +283,7 @@ fn closed_form_covariance(
         tau_influence: &[(1, 1e-7), (2, -5e-8)],
         relaxation_time_s: 1.0 / (2.0 * PI * FC),
         variance: SIGMA2,
+        noise_floor: None,
     })
 }
 

@@ -20,6 +20,7 @@ fn filtered_record(seed: u64, n: usize, sample_rate_hz: f64, filter: DetectorFil
         aliasing: true,
         filter: FilterSetting::Fixed(filter),
         hydro: None,
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let mut rng = generator(seed);

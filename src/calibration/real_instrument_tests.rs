@@ -112,6 +112,7 @@ fn filtered_volt_record(
         aliasing: true,
         filter: FilterSetting::Fixed(filter),
         hydro: None,
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let x = gaussian_record(|f| model.one_sided_psd(f, &theta), fs, n, rng);
@@ -208,6 +209,7 @@ fn frequency_dependent_drag_modelled_gives_the_right_consensus_for_large_beads()
             f_nu_hz: h.f_nu_hz,
             f_m_hz: h.f_m_hz,
         }),
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let options = AnalysisOptions {

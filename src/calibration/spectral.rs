@@ -5,7 +5,7 @@
 use super::{AnalysisOptions, CalibrationError, Physics, RunConditions};
 use crate::drag;
 use crate::spectrum::{
-    self, HydroTerms, NarrowPeak, Periodogram, SpectralLine, SpectrumFit, SpectrumFitOptions,
+    self, HydroTerms, NarrowPeak, NoiseFloorTest, Periodogram, SpectralLine, SpectrumFit, SpectrumFitOptions,
     SpectrumModel,
 };
 
@@ -23,6 +23,8 @@ pub(crate) struct SpectralStage {
     /// The one model of this axis's measured spectrum.
     pub(crate) model: SpectrumModel,
     pub(crate) fit: Result<SpectrumFit, CalibrationError>,
+    /// The white noise floor's test, when the mode is not `off` and the fit worked.
+    pub(crate) noise_floor_test: Option<NoiseFloorTest>,
 }
 
 /// The model of the measured spectrum these options and conditions describe.
@@ -49,6 +51,7 @@ pub(crate) fn spectrum_model(
         aliasing: true,
         filter: options.filter,
         hydro,
+        noise_floor: false,
     }
 }
 
@@ -95,18 +98,28 @@ pub(crate) fn spectral_stage(
     if options.exclude_peaks {
         fit_options.excluded_bins = excluded_bins(&peaks, periodogram.psd.len());
     }
-    let fit = spectrum::fit_spectrum(&periodogram, &fit_options, None).map_err(|e| {
-        CalibrationError::Spectrum {
-            axis: name.to_string(),
-            cause: e,
-        }
-    });
+    // The white noise floor enters the model when the mode and the likelihood-ratio test say so
+    // (`spectrum::fit_spectrum_with_floor`); the stage's model is then the one with the floor,
+    // whose theta the fit holds.
+    let (fit, noise_floor_test) =
+        match spectrum::fit_spectrum_with_floor(&periodogram, &fit_options, options.noise_floor) {
+            Ok((fit, test)) => (Ok(fit), test),
+            Err(e) => (
+                Err(CalibrationError::Spectrum {
+                    axis: name.to_string(),
+                    cause: e,
+                }),
+                None,
+            ),
+        };
+    let model = fit.as_ref().map_or(model, |f| f.model);
     Ok(SpectralStage {
         periodogram,
         lines,
         peaks,
         model,
         fit,
+        noise_floor_test,
     })
 }
 

@@ -13,7 +13,7 @@ use crate::calibration::{AnalysisOptions, RunConditions};
 use crate::equipartition::Detrend;
 use crate::ingest::{DEFAULT_TIME_TOLERANCE, Format, IngestOptions};
 use crate::recording::PositionUnit;
-use crate::spectrum::FilterSetting;
+use crate::spectrum::{FilterSetting, NoiseFloorMode};
 use std::collections::BTreeMap;
 
 pub use spec::{Absent, Flag, KEYS, Kind, Range, SPECS, SettingSpec, Value, parse_filter};
@@ -63,6 +63,15 @@ pub fn parse_unit(value: &str) -> Option<PositionUnit> {
 }
 
 /// The detrending a `detrend` choice names.
+fn parse_noise_floor(name: &str) -> Option<NoiseFloorMode> {
+    match spec::NOISE_FLOOR_CHOICES.find(name)? {
+        "auto" => Some(NoiseFloorMode::Auto),
+        "fit" => Some(NoiseFloorMode::Fit),
+        "off" => Some(NoiseFloorMode::Off),
+        _ => None,
+    }
+}
+
 fn parse_detrend(name: &str) -> Option<Detrend> {
     match spec::DETREND_CHOICES.find(name)? {
         "mean" => Some(Detrend::Mean),
@@ -221,6 +230,9 @@ impl Settings {
         }
         if let Some(h) = self.boolean("hydrodynamics") {
             analysis.hydrodynamics = h;
+        }
+        if let Some(m) = self.choice("noise_floor", parse_noise_floor)? {
+            analysis.noise_floor = m;
         }
         if let Some(d) = self.choice("detrend", parse_detrend)? {
             analysis.detrend = d;

@@ -343,6 +343,12 @@ pub const DETREND_CHOICES: Choices = Choices {
     aliases: &[],
 };
 
+/// Names of the `noise_floor` setting.
+pub const NOISE_FLOOR_CHOICES: Choices = Choices {
+    names: &["auto", "fit", "off"],
+    aliases: &[],
+};
+
 /// Every run setting, in the order they are listed to people. The order also fixes `KEYS`
 /// and the message that lists the known keys.
 pub const SPECS: &[SettingSpec] = &[
@@ -604,6 +610,21 @@ pub const SPECS: &[SettingSpec] = &[
         flag: Flag::Switch {
             long: "hydrodynamics",
             sets: "true",
+        },
+    },
+    SettingSpec {
+        key: "noise_floor",
+        label: "White noise floor",
+        kind: Kind::Choice(&NOISE_FLOOR_CHOICES),
+        unit: "",
+        help: "A constant white background in the spectral model: auto (fitted when a \
+               likelihood-ratio test at a 1 % false-inclusion rate says the data hold one), \
+               fit (always) or off.",
+        absent: Absent::Default("auto"),
+        example: "off",
+        flag: Flag::Value {
+            long: "noise-floor",
+            value_name: "MODE",
         },
     },
     SettingSpec {

@@ -436,6 +436,7 @@ fn hydrodynamic_spectrum_equals_a_brute_force_image_sum_and_agrees_with_the_fitt
             aliasing: true,
             filter: filter.map_or(FilterSetting::None, FilterSetting::Fixed),
             hydro: Some(hydro),
+            noise_floor: false,
         };
         let theta = [fc.ln(), d.ln()];
         for i in 0..=50 {

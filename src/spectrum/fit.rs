@@ -333,6 +333,50 @@ pub fn fit_spectrum(
         Some(s) => s,
         None => starting_values(&blocks, periodogram.sample_rate_hz),
     };
+    fit_blocks(periodogram, options, blocks, model.initial_theta(fc0, d0))
+}
+
+/// Fits `options.model` to the periodogram by maximum likelihood from the parameter vector
+/// `theta` (log space, see `model`), as `fit_spectrum` does from (fc, D).
+pub(crate) fn fit_spectrum_from_theta(
+    periodogram: &Periodogram,
+    options: &SpectrumFitOptions,
+    theta: Vec<f64>,
+) -> Result<SpectrumFit, SpectrumFitError> {
+    let (f_min_hz, f_max_hz) = options.resolved_range(periodogram);
+    if !(f_max_hz > f_min_hz && f_min_hz >= 0.0) {
+        return Err(SpectrumFitError::EmptyRange { f_min_hz, f_max_hz });
+    }
+    let blocks = block_periodogram(
+        periodogram,
+        f_min_hz,
+        f_max_hz,
+        &options.excluded_bins,
+        options.min_bins_per_block,
+        options.target_blocks,
+    );
+    let n_params = options.model.n_params();
+    if blocks.len() < n_params + 2 || theta.len() != n_params {
+        return Err(SpectrumFitError::TooFewBlocks {
+            f_min_hz,
+            f_max_hz,
+            n_blocks: blocks.len(),
+            n_params,
+        });
+    }
+    fit_blocks(periodogram, options, blocks, theta)
+}
+
+/// The maximum-likelihood fit of `options.model` to `blocks` of `periodogram` from `theta`.
+fn fit_blocks(
+    periodogram: &Periodogram,
+    options: &SpectrumFitOptions,
+    blocks: Vec<Block>,
+    mut theta: Vec<f64>,
+) -> Result<SpectrumFit, SpectrumFitError> {
+    let (f_min_hz, f_max_hz) = options.resolved_range(periodogram);
+    let model = &options.model;
+    let n_params = model.n_params();
     let whittle = Whittle {
         model,
         blocks: &blocks,
@@ -343,7 +387,6 @@ pub fn fit_spectrum(
                 * periodogram.resolution_hz(),
         }),
     };
-    let mut theta = model.initial_theta(fc0, d0);
     let (mut theta_opt, mut iterations, converged) = fisher_scoring(&whittle, theta.clone(), 200);
     if !converged {
         theta = nelder_mead(&whittle, &theta_opt).unwrap_or(theta_opt.clone());

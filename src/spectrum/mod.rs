@@ -13,6 +13,7 @@
 //! not doubled). Frequencies are in ascending order, f_k = k / (L dt).
 
 mod fit;
+mod floor;
 mod lines;
 mod model;
 mod peaks;
@@ -22,6 +23,10 @@ mod tests;
 pub use fit::{
     FitRange, MIN_PARAMETER_RCOND, PlainLorentzianFit, SpectrumFit, SpectrumFitError,
     SpectrumFitOptions, fit_spectrum, plain_lorentzian_wls,
+};
+pub use floor::{
+    NOISE_FLOOR_CRITICAL_LR, NOISE_FLOOR_FALSE_INCLUSION, NoiseFloorLevel, NoiseFloorMode,
+    NoiseFloorTest, boundary_mixture_p_value, fit_spectrum_with_floor,
 };
 pub use lines::{SpectralLine, fit_line, subtract_lines};
 pub(crate) use model::Params;

@@ -14,6 +14,7 @@ fn ideal_model(sample_rate_hz: f64) -> SpectrumModel {
         aliasing: true,
         filter: FilterSetting::None,
         hydro: None,
+        noise_floor: false,
     }
 }
 
@@ -886,6 +887,7 @@ fn filtered_spectrum_in_closed_form_equals_the_direct_alias_sum() {
             aliasing: true,
             filter: FilterSetting::Fixed(filter),
             hydro: None,
+            noise_floor: false,
         };
         let theta = [fc.ln(), d.ln()];
         let m = 200_000i64;
@@ -926,6 +928,7 @@ fn expected_periodogram_of_short_segments_equals_the_autocovariance_double_sum()
             aliasing: true,
             filter: filter.map_or(FilterSetting::None, FilterSetting::Fixed),
             hydro: None,
+            noise_floor: false,
         };
         let p = model.decode(&[fc.ln(), d.ln()]);
         let acov = |m: i64| {

@@ -110,6 +110,7 @@ fn declared_spectrum(model: &serde_json::Value, sample_rate_hz: f64) -> Spectrum
         aliasing: true,
         filter: filter.map_or(FilterSetting::None, FilterSetting::Fixed),
         hydro,
+        noise_floor: false,
     };
     Box::new(move |f: f64| {
         let thermal = match exposure {
