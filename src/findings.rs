@@ -518,9 +518,9 @@ pub struct NoiseFloorInputs<'a> {
 /// otherwise information (common practice, no source: the estimate's own error is the scale).
 pub fn noise_floor(inputs: &NoiseFloorInputs<'_>) -> Option<Finding> {
     let level = inputs.level?;
-    let share = inputs
-        .share
-        .map_or_else(String::new, |s| format!(", {:.2} % of the measured variance", 100.0 * s));
+    let share = inputs.share.map_or_else(String::new, |s| {
+        format!(", {:.2} % of the measured variance", 100.0 * s)
+    });
     let moved: Vec<String> = inputs
         .shifts
         .iter()

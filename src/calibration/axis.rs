@@ -103,9 +103,8 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     // Equipartition corrected by a factor from the spectral fit, or with the spectral fit's
     // noise floor subtracted, is no more independent of the spectrum than equipartition in
     // volts.
-    let equipartition_independent = unit == PositionUnit::Nanometre
-        && time.variance_factor == 1.0
-        && !time.noise_subtracted;
+    let equipartition_independent =
+        unit == PositionUnit::Nanometre && time.variance_factor == 1.0 && !time.noise_subtracted;
     let stiffness = consensus_stage(&propagated, equipartition_independent, excluded);
     let d_theory = physics.thermal_energy_j / drag.drag_kg_per_s.value;
     let noise_floor = noise_floor_summary(&spectral, &time);
@@ -137,7 +136,13 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     let findings: Vec<findings::Finding> = findings
         .into_iter()
         .chain(noise_floor.as_ref().and_then(|summary| {
-            findings::noise_floor(&noise_floor_shifts(name, summary, &spectral, &time, &propagated))
+            findings::noise_floor(&noise_floor_shifts(
+                name,
+                summary,
+                &spectral,
+                &time,
+                &propagated,
+            ))
         }))
         .collect();
     Ok(assemble(
@@ -156,7 +161,10 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
 }
 
 /// The white noise floor's test, level and share of the measured variance.
-fn noise_floor_summary(spectral: &SpectralStage, time: &TimeDomainStage) -> Option<NoiseFloorSummary> {
+fn noise_floor_summary(
+    spectral: &SpectralStage,
+    time: &TimeDomainStage,
+) -> Option<NoiseFloorSummary> {
     let test = spectral.noise_floor_test?;
     let level = spectral
         .fit

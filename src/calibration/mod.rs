@@ -12,6 +12,8 @@ pub mod consensus;
 mod covariance;
 #[cfg(test)]
 mod exclusion_tests;
+#[cfg(test)]
+mod noise_floor_tests;
 mod propagation;
 #[cfg(test)]
 mod real_instrument_tests;

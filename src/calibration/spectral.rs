@@ -5,8 +5,8 @@
 use super::{AnalysisOptions, CalibrationError, Physics, RunConditions};
 use crate::drag;
 use crate::spectrum::{
-    self, HydroTerms, NarrowPeak, NoiseFloorTest, Periodogram, SpectralLine, SpectrumFit, SpectrumFitOptions,
-    SpectrumModel,
+    self, HydroTerms, NarrowPeak, NoiseFloorTest, Periodogram, SpectralLine, SpectrumFit,
+    SpectrumFitOptions, SpectrumModel,
 };
 
 /// What the spectral stage found. The periodogram always exists (a record too short for one

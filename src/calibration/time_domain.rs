@@ -76,7 +76,14 @@ pub(crate) fn time_domain_stage(
         )
         .map(|fit| fit.decay),
         None => {
-            autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &options.acf)
+            // White noise leaves the lags the fit uses alone but adds to their scatter.
+            let acf_options = autocorrelation::AcfFitOptions {
+                white_noise_variance: account
+                    .and_then(|a| a.noise_variance)
+                    .map_or(0.0, |n| n.value),
+                ..options.acf.clone()
+            };
+            autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &acf_options)
         }
     }
     .map_err(|e| CalibrationError::Autocorrelation {

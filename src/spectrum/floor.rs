@@ -105,7 +105,11 @@ fn neg_log_likelihood(fit: &SpectrumFit) -> f64 {
 /// U = sum_b n_b (P_b / S_b - 1) g_b / S_b and I = sum_b n_b g_b^2 / S_b^2, where g_b is the
 /// block mean of dS/dP_n (1 plus the differenced segments' finite-record term, see
 /// `SpectrumModel::leakage_params`).
-fn score_at_zero(fit: &SpectrumFit, with_floor: &SpectrumFitOptions, periodogram: &Periodogram) -> (f64, f64) {
+fn score_at_zero(
+    fit: &SpectrumFit,
+    with_floor: &SpectrumFitOptions,
+    periodogram: &Periodogram,
+) -> (f64, f64) {
     let model = &with_floor.model;
     let mut theta = fit.theta.clone();
     theta.push(0.0);

@@ -14,6 +14,8 @@
 
 mod fit;
 mod floor;
+#[cfg(test)]
+mod floor_tests;
 mod lines;
 mod model;
 mod peaks;

@@ -317,22 +317,22 @@ impl SpectrumModel {
         };
         floor_term
             + components
-            .iter()
-            .filter(|(_, variance)| *variance != 0.0)
-            .map(|&(f_j, variance)| {
-                let c = (-2.0 * PI * f_j * dt).exp();
-                let d = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
-                let c_l = c.powf(l);
-                let bracket = c.mul_add(c, 1.0).mul_add(cos_theta, -2.0 * c);
-                let edge = 2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * variance * dt;
-                if differenced {
-                    let one_minus_c = 1.0 - c;
-                    edge * one_minus_c * one_minus_c / gain
-                } else {
-                    -edge * c
-                }
-            })
-            .sum::<f64>()
+                .iter()
+                .filter(|(_, variance)| *variance != 0.0)
+                .map(|&(f_j, variance)| {
+                    let c = (-2.0 * PI * f_j * dt).exp();
+                    let d = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
+                    let c_l = c.powf(l);
+                    let bracket = c.mul_add(c, 1.0).mul_add(cos_theta, -2.0 * c);
+                    let edge = 2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * variance * dt;
+                    if differenced {
+                        let one_minus_c = 1.0 - c;
+                        edge * one_minus_c * one_minus_c / gain
+                    } else {
+                        -edge * c
+                    }
+                })
+                .sum::<f64>()
     }
 
     /// Expected one-sided PSD at `f_hz` for parameters `theta`.
