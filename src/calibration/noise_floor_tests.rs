@@ -238,6 +238,12 @@ fn in_nanometres_equipartition_subtracts_the_floor_and_leaves_the_consensus() {
         "equipartition mean {mean}, sd {sd}"
     );
     assert!((0.8..1.25).contains(&ratio), "equipartition sd/se {ratio}");
-    assert!(mean_correlation.abs() > 0.01, "corr(psd, eq) {mean_correlation}");
-    assert!(off_bar < 11, "{off_bar} of {records} records missed the bar");
+    assert!(
+        mean_correlation.abs() > 0.01,
+        "corr(psd, eq) {mean_correlation}"
+    );
+    assert!(
+        off_bar < 11,
+        "{off_bar} of {records} records missed the bar"
+    );
 }

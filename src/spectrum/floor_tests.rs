@@ -1,5 +1,8 @@
 //! Tests of the white noise floor in the spectral model and of its likelihood-ratio test.
 
+// The double sums mirror their formulas term by term.
+#![allow(clippy::suboptimal_flops)]
+
 use super::model::Segments;
 use super::*;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
