@@ -22,7 +22,9 @@ pub enum NoiseFloorMode {
     /// Fitted when the likelihood-ratio test says the data support it (see the module docs).
     #[default]
     Auto,
-    /// Always fitted (reported as 0 when its maximum-likelihood value is on the boundary).
+    /// Always fitted, except when its maximum-likelihood value is on the boundary P_n = 0 (the
+    /// score there is not positive, or the fit from the one-step start fails): the model is
+    /// then the one without the floor, and the report says it is not included.
     Fit,
     /// Never in the model.
     Off,
