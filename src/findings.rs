@@ -502,6 +502,8 @@ impl FindingInputs<'_> {
 #[derive(Clone, Debug, PartialEq)]
 pub struct NoiseFloorInputs<'a> {
     pub axis: &'a str,
+    /// The record's unit, for the level's unit.
+    pub unit: PositionUnit,
     /// sigma_n^2 over the measured variance.
     pub share: Option<f64>,
     /// The one-sided level P_n, signal-unit^2/Hz.
@@ -529,8 +531,12 @@ pub fn noise_floor(inputs: &NoiseFloorInputs<'_>) -> Option<Finding> {
             format!("{name} by {:+.1} % (se {:.1} %)", 100.0 * shift, 100.0 * se)
         })
         .collect();
+    let unit = match inputs.unit {
+        PositionUnit::Nanometre => "nm^2/Hz",
+        PositionUnit::Volt => "V^2/Hz",
+    };
     let head = format!(
-        "axis `{}`: a white noise floor of {:.3e} +- {:.1e} per Hz is in the spectral model{share}",
+        "axis `{}`: a white noise floor of {:.3e} +- {:.1e} {unit} is in the spectral model{share}",
         inputs.axis, level.value, level.se
     );
     Some(if moved.is_empty() {

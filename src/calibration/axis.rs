@@ -137,7 +137,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         .into_iter()
         .chain(noise_floor.as_ref().and_then(|summary| {
             findings::noise_floor(&noise_floor_shifts(
-                name,
+                (name, unit),
                 summary,
                 &spectral,
                 &time,
@@ -186,7 +186,7 @@ fn noise_floor_summary(
 /// What the `noise-floor` finding weighs: how far the floor moved each estimate it touches,
 /// against that estimate's standard error, both relative.
 fn noise_floor_shifts<'a>(
-    axis: &'a str,
+    (axis, unit): (&'a str, PositionUnit),
     summary: &NoiseFloorSummary,
     spectral: &SpectralStage,
     time: &TimeDomainStage,
@@ -221,6 +221,7 @@ fn noise_floor_shifts<'a>(
     }
     findings::NoiseFloorInputs {
         axis,
+        unit,
         share: summary.variance_share,
         level: summary.level.map(|l| Estimate::new(l.level, l.level_se)),
         shifts,
