@@ -51,6 +51,7 @@ fn bench(c: &mut Criterion) {
         filter,
         hydro,
         exposure_s: None,
+        noise_floor: false,
     };
     let acov_plain = acov_of(&spectrum(FilterSetting::None, None));
     let acov_filtered = acov_of(&spectrum(FilterSetting::Fixed(FILTER), None));

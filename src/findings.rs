@@ -651,3 +651,63 @@ pub fn axes_coupled(inp: &CouplingInputs<'_>) -> Finding {
     };
     finding("axes-coupled", Severity::Warning, format!("{head}: {body}"))
 }
+
+/// What the `noise-floor` finding reads: the floor fitted to one axis and how far it moved the
+/// estimates it touches.
+#[derive(Clone, Debug, PartialEq)]
+pub struct NoiseFloorInputs<'a> {
+    pub axis: &'a str,
+    /// The record's unit, for the level's unit.
+    pub unit: PositionUnit,
+    /// sigma_n^2 over the measured variance.
+    pub share: Option<f64>,
+    /// The one-sided level P_n, signal-unit^2/Hz.
+    pub level: Option<Estimate>,
+    /// (estimate, relative change the floor caused, that estimate's relative standard error).
+    pub shifts: Vec<(&'static str, f64, f64)>,
+}
+
+/// `noise-floor`: a white background is in the spectral model of this axis (only when it is).
+///
+/// The rule: a warning when the floor moved any estimate it touches (fc and so the psd
+/// stiffness, beta, the equipartition variance) by more than that estimate's standard error,
+/// since then a calibration without the floor would have been wrong by more than its error bar;
+/// otherwise information (common practice, no source: the estimate's own error is the scale).
+pub fn noise_floor(inputs: &NoiseFloorInputs<'_>) -> Option<Finding> {
+    let level = inputs.level?;
+    let share = inputs.share.map_or_else(String::new, |s| {
+        format!(", {:.2} % of the measured variance", 100.0 * s)
+    });
+    let moved: Vec<String> = inputs
+        .shifts
+        .iter()
+        .filter(|(_, shift, se)| shift.abs() > *se)
+        .map(|(name, shift, se)| {
+            format!("{name} by {:+.1} % (se {:.1} %)", 100.0 * shift, 100.0 * se)
+        })
+        .collect();
+    let unit = match inputs.unit {
+        PositionUnit::Nanometre => "nm^2/Hz",
+        PositionUnit::Volt => "V^2/Hz",
+    };
+    let head = format!(
+        "axis `{}`: a white noise floor of {:.3e} +- {:.1e} {unit} is in the spectral model{share}",
+        inputs.axis, level.value, level.se
+    );
+    Some(if moved.is_empty() {
+        finding(
+            "noise-floor",
+            Severity::Info,
+            format!("{head}; it moved no estimate by more than its standard error"),
+        )
+    } else {
+        finding(
+            "noise-floor",
+            Severity::Warning,
+            format!(
+                "{head}; accounting for it moved {}; equipartition has the floor subtracted and rests on the spectral fit; reduce detector noise (more light on the detector, less amplifier gain noise) for an independent check",
+                moved.join(", ")
+            ),
+        )
+    })
+}

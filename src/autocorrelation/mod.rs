@@ -161,6 +161,11 @@ pub struct AcfFitOptions {
     /// At most this many lags enter the fit (default 64); above it the lag grid is strided
     /// evenly, which also keeps the weight matrix well conditioned when `c` is close to 1.
     pub max_lags_used: usize,
+    /// Variance sigma_n^2 of white detection noise in the record (signal-unit^2; default 0), as
+    /// the spectral fit's noise floor gives it. It adds to lag 0 only, which the fit leaves out,
+    /// but it adds to the scatter of every sample autocovariance, so the plain exponential fit's
+    /// Bartlett weights include it (see `add_white_noise_covariance`).
+    pub white_noise_variance: f64,
 }
 
 impl Default for AcfFitOptions {
@@ -169,6 +174,7 @@ impl Default for AcfFitOptions {
             first_lag: DEFAULT_FIRST_LAG,
             last_lag: None,
             max_lags_used: 64,
+            white_noise_variance: 0.0,
         }
     }
 }
@@ -571,6 +577,44 @@ fn autocovariance_covariance(
     cov
 }
 
+/// Adds to the Bartlett covariance of the sample autocovariances at `lags` (all >= 1) what
+/// white detection noise of variance `noise_variance` contributes when the autocovariance is
+/// g(d) = A c^|d| + sigma_n^2 delta_d0 instead of A c^|d|.
+///
+/// In the count sum of `autocovariance_covariance_ar1`, f(d) = g(d) g(d+m) + g(d+l) g(d-k) with
+/// m = l - k gains sigma_n^2 A c^m at d = 0 and d = -m (pair count N - l each),
+/// sigma_n^2 A c^(k+l) at d = -l and d = k (count N - l - k each), and sigma_n^4 at d = 0 when
+/// k = l (derived here from Isserlis' theorem, like that function), so
+/// (N-k)(N-l) dCov = 2 sigma_n^2 A [c^m (N - l) + c^(k+l) (N - l - k)] + sigma_n^4 (N - l) [k = l].
+fn add_white_noise_covariance(
+    cov: &mut DMatrix<f64>,
+    (amplitude, c): (f64, f64),
+    noise_variance: f64,
+    lags: &[usize],
+    n_samples: usize,
+) {
+    if !(noise_variance > 0.0) {
+        return;
+    }
+    let n = n_samples as f64;
+    for (i, &lag_a) in lags.iter().enumerate() {
+        for (j, &lag_b) in lags.iter().enumerate() {
+            let (k, l) = (lag_a.min(lag_b) as f64, lag_a.max(lag_b) as f64);
+            let m = l - k;
+            let cross = 2.0
+                * noise_variance
+                * amplitude
+                * c.powf(m).mul_add(n - l, c.powf(k + l) * (n - l - k));
+            let white = if lag_a == lag_b {
+                noise_variance * noise_variance * (n - l)
+            } else {
+                0.0
+            };
+            cov[(i, j)] += (cross + white) / ((n - k) * (n - l));
+        }
+    }
+}
+
 /// The lag window used by default.
 ///
 /// From a quick estimate of tau from the lag-1 ratio, `tau1 = -dt/ln(acov[1]/acov[0])`, the last
@@ -652,6 +696,7 @@ pub fn fit_exponential(
         lags: &lags,
         data: &data,
         n_samples,
+        white_noise_variance: options.white_noise_variance.max(0.0),
     };
     let (amplitude, c, iterations) = problem.solve(lag1, lag0)?;
     let system = problem
@@ -825,6 +870,8 @@ struct Problem<'a> {
     lags: &'a [usize],
     data: &'a [f64],
     n_samples: usize,
+    /// sigma_n^2 of white detection noise, signal-unit^2.
+    white_noise_variance: f64,
 }
 
 /// The GLS quantities at one parameter point.
@@ -870,7 +917,14 @@ impl Problem<'_> {
     fn factorise(&self, amplitude: f64, c: f64) -> Option<nalgebra::Cholesky<f64, nalgebra::Dyn>> {
         let mut ridge = 1e-12;
         while ridge <= 1e-6 {
-            let cov = autocovariance_covariance(amplitude, c, self.lags, self.n_samples, ridge);
+            let mut cov = autocovariance_covariance(amplitude, c, self.lags, self.n_samples, ridge);
+            add_white_noise_covariance(
+                &mut cov,
+                (amplitude, c),
+                self.white_noise_variance,
+                self.lags,
+                self.n_samples,
+            );
             if let Some(cholesky) = cov.cholesky() {
                 return Some(cholesky);
             }

@@ -351,6 +351,7 @@ impl HydroIntegrand {
                 .map_or(FilterSetting::None, FilterSetting::Fixed),
             hydro: Some(hydro),
             exposure_s: None,
+            noise_floor: false,
         };
         let f3 = model.filter.map_or(0.0, |f| f.f3db_hz);
         let highest_hz = hydro
@@ -381,6 +382,7 @@ impl HydroIntegrand {
             fc,
             d,
             filter: self.filter,
+            noise_floor: 0.0,
         };
         let hydro = self.spectrum.psd_params(f_hz, &params);
         let gain = self.filter.map_or(1.0, |filter| filter.gain(f_hz));

@@ -483,6 +483,7 @@ fn filtered_fit_is_unbiased_with_honest_errors_and_the_exponential_fit_is_not() 
         filter: FilterSetting::Fixed(FILTER),
         hydro: None,
         exposure_s: None,
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let table = spectrum_table(|f| spectrum.one_sided_psd(f, &theta), fs, n_samples);
@@ -546,6 +547,7 @@ fn hydrodynamic_fit_is_unbiased_with_honest_errors() {
         filter: FilterSetting::None,
         hydro: Some(hydro),
         exposure_s: None,
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let table = spectrum_table(|f| spectrum.one_sided_psd(f, &theta), fs, n_samples);

@@ -327,6 +327,7 @@ fn fit_recovers_parameters_from_the_exact_model_expectation() {
             first_lag: 0,
             last_lag: Some(60),
             max_lags_used: 7,
+            white_noise_variance: 0.0,
         },
     );
 }
@@ -636,6 +637,7 @@ fn fit_returns_finite_results_or_errors_on_arbitrary_input() {
                 None
             },
             max_lags_used: rng.random_range(0..10),
+            white_noise_variance: 0.0,
         };
         let n_samples = rng.random_range(0..100_000);
         if let Ok(fit) = fit_exponential(&acov, 1e4, n_samples, &options) {

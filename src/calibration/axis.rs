@@ -12,8 +12,8 @@ use super::propagation::{self, Propagated, PropagationInputs};
 use super::spectral::{self, SpectralStage};
 use super::time_domain::{self, SpectralAccount, TimeDomainStage};
 use super::{
-    AnalysisOptions, AxisCalibration, CalibrationError, MethodFailure, Physics, RunConditions,
-    Stiffness,
+    AnalysisOptions, AxisCalibration, CalibrationError, MethodFailure, NoiseFloorSummary, Physics,
+    RunConditions, Stiffness,
 };
 use crate::autocorrelation::TimeDomainModel;
 use crate::equipartition::{self, Detrend};
@@ -71,6 +71,9 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         },
         corner_frequency_hz: fit.corner_frequency_hz,
         diffusion: fit.diffusion,
+        noise_variance: fit
+            .noise_floor()
+            .map(|floor| Estimate::new(floor.variance, floor.variance_se)),
     });
     let mut time = time_domain::time_domain_stage(
         name,
@@ -122,10 +125,12 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         excluded[1] = Some(reason);
     }
     // Equipartition corrected by a factor from the spectral fit (or by the drift's share of the
-    // variance computed from it) is no more independent of the spectrum than equipartition in
+    // variance computed from it, or with the fit's noise floor subtracted) is no more independent of the spectrum than equipartition in
     // volts.
-    let equipartition_independent =
-        unit == PositionUnit::Nanometre && time.variance_factor == 1.0 && drift_account.is_none();
+    let equipartition_independent = unit == PositionUnit::Nanometre
+        && time.variance_factor == 1.0
+        && drift_account.is_none()
+        && !time.noise_subtracted;
     let drift_evidence = drift_account.as_ref().map(|a| {
         drift::evidence(
             a,
@@ -136,6 +141,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     });
     let stiffness = consensus_stage(&propagated, equipartition_independent, excluded);
     let d_theory = physics.thermal_energy_j / drag.drag_kg_per_s.value;
+    let noise_floor = noise_floor_summary(&spectral, &time);
     let failure_texts: Vec<(&str, String)> = failures
         .iter()
         .map(|f| (f.method, f.error.to_string()))
@@ -163,8 +169,21 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         spectrum_excluded: stiffness.stiffness.excluded[0].as_deref(),
         drift: drift_evidence.as_ref(),
     });
+    let findings: Vec<findings::Finding> = findings
+        .into_iter()
+        .chain(noise_floor.as_ref().and_then(|summary| {
+            findings::noise_floor(&noise_floor_shifts(
+                (name, unit),
+                summary,
+                &spectral,
+                &time,
+                &propagated,
+            ))
+        }))
+        .collect();
     Ok(assemble(
         name,
+        noise_floor,
         drag,
         d_theory,
         spectral,
@@ -175,6 +194,74 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         failures,
         sample_rate_hz,
     ))
+}
+
+/// The white noise floor's test, level and share of the measured variance.
+fn noise_floor_summary(
+    spectral: &SpectralStage,
+    time: &TimeDomainStage,
+) -> Option<NoiseFloorSummary> {
+    let test = spectral.noise_floor_test?;
+    let level = spectral
+        .fit
+        .as_ref()
+        .ok()
+        .and_then(|f| f.noise_floor())
+        .filter(|_| test.included);
+    let variance_share = level.and_then(|l| {
+        let v = time.variance.as_ref().ok()?;
+        Some(l.variance / v.variance.mul_add(time.variance_factor, l.variance))
+    });
+    Some(NoiseFloorSummary {
+        test,
+        level,
+        variance_share,
+    })
+}
+
+/// What the `noise-floor` finding weighs: how far the floor moved each estimate it touches,
+/// against that estimate's standard error, both relative.
+fn noise_floor_shifts<'a>(
+    (axis, unit): (&'a str, PositionUnit),
+    summary: &NoiseFloorSummary,
+    spectral: &SpectralStage,
+    time: &TimeDomainStage,
+    propagated: &Propagated,
+) -> findings::NoiseFloorInputs<'a> {
+    let mut shifts = Vec::new();
+    if let (Some(level), Ok(fit)) = (summary.level, spectral.fit.as_ref()) {
+        let test = &summary.test;
+        // kappa_psd is proportional to fc.
+        shifts.push((
+            "psd stiffness",
+            fit.corner_frequency_hz / test.corner_frequency_without_hz - 1.0,
+            fit.corner_frequency_se_hz / fit.corner_frequency_hz,
+        ));
+        // beta is proportional to D^(-1/2).
+        if let Some(beta) = propagated.sensitivity_nm_per_v {
+            shifts.push((
+                "sensitivity beta",
+                (test.diffusion_without / fit.diffusion).sqrt() - 1.0,
+                beta.relative_se(),
+            ));
+        }
+        // Equipartition's variance lost sigma_n^2.
+        if let Ok(v) = time.variance.as_ref() {
+            let corrected = v.variance * time.variance_factor;
+            shifts.push((
+                "equipartition stiffness",
+                level.variance / corrected,
+                v.variance_se / v.variance,
+            ));
+        }
+    }
+    findings::NoiseFloorInputs {
+        axis,
+        unit,
+        share: summary.variance_share,
+        level: summary.level.map(|l| Estimate::new(l.level, l.level_se)),
+        shifts,
+    }
 }
 
 /// The methods that failed, in the order they ran.
@@ -458,6 +545,7 @@ fn disagreements(
 #[allow(clippy::too_many_arguments)]
 fn assemble(
     name: &str,
+    noise_floor: Option<NoiseFloorSummary>,
     drag: AxisDrag,
     diffusion_theory_m2_per_s: f64,
     spectral: SpectralStage,
@@ -471,6 +559,7 @@ fn assemble(
     let fit = spectral.fit.ok();
     let acf = time.acf.ok();
     AxisCalibration {
+        noise_floor,
         axis: name.to_string(),
         orientation: drag.orientation,
         wall_factor: drag.wall_factor,

@@ -39,6 +39,9 @@ pub(crate) struct InfluenceInputs<'a> {
     pub(crate) tau_influence: &'a [(usize, f64)],
     pub(crate) relaxation_time_s: f64,
     pub(crate) variance: f64,
+    /// The white noise variance sigma_n^2 = P_n / (2 dt) that equipartition subtracted from the
+    /// sample variance, with the index of ln P_n in theta; `None` without a fitted floor.
+    pub(crate) noise_floor: Option<(usize, f64)>,
 }
 
 /// Covariance matrix of (ln fc, ln D, ln tau, ln variance), dimensionless.
@@ -84,7 +87,17 @@ pub(crate) fn log_covariance(inp: &InfluenceInputs<'_>) -> [[f64; 4]; 4] {
             }
         }
         a[2] = lag_cosines.weighted_sum() / inp.relaxation_time_s;
-        a[3] = 1.0 / inp.variance;
+        // Equipartition's variance less the fitted floor, s^2 - sigma_n^2: its influence is
+        // 1 - sigma_n^2 a_{ln P_n}(f), so it shares the spectral fit's scatter in the band.
+        let floor_influence = match inp.noise_floor {
+            Some((index, noise_variance)) if in_band => {
+                let row = &inp.theta_covariance[index];
+                let proj: f64 = row.iter().zip(&dlns).map(|(c, d)| c * d).sum();
+                noise_variance * inp.record_length_s * proj / s
+            }
+            _ => 0.0,
+        };
+        a[3] = (1.0 - floor_influence) / inp.variance;
         let s2 = s * s * w / inp.record_length_s;
         // Outside the band a[0] = a[1] = 0, so only the lower-right block gains anything.
         let first = if in_band { 0 } else { 2 };
@@ -136,6 +149,7 @@ pub(crate) fn method_correlation(
                 filter: FilterSetting::None,
                 hydro: None,
                 exposure_s: None,
+                noise_floor: false,
             };
             // An empty fit band: no spectral weights.
             (
@@ -163,6 +177,10 @@ pub(crate) fn method_correlation(
         tau_influence,
         relaxation_time_s,
         variance: variance.unwrap_or(1.0),
+        noise_floor: fit.and_then(|f| {
+            let index = f.model.noise_floor_index()?;
+            Some((index, f.noise_floor()?.variance))
+        }),
     });
     let mut r = correlation(&cov);
     let present = [

@@ -87,6 +87,7 @@ fn closed_form_model() -> SpectrumModel {
         filter: FilterSetting::None,
         hydro: None,
         exposure_s: None,
+        noise_floor: false,
     }
 }
 
@@ -131,6 +132,7 @@ fn check_fast_matches_reference(
         tau_influence: &tau_influence,
         relaxation_time_s: 1.0 / (2.0 * PI * FC),
         variance: SIGMA2,
+        noise_floor: None,
     };
     let fast = log_covariance(&inp);
     let reference = reference_log_covariance(&inp);
@@ -282,6 +284,7 @@ fn closed_form_covariance(
         tau_influence: &[(1, 1e-7), (2, -5e-8)],
         relaxation_time_s: 1.0 / (2.0 * PI * FC),
         variance: SIGMA2,
+        noise_floor: None,
     })
 }
 

@@ -86,6 +86,35 @@ pub(crate) fn flicker_refit(
     (adopted, Some(test))
 }
 
+/// The 1/f term tested again once the noise floor's test has put a white floor into the model:
+/// the two terms compete for the power at high frequencies, so the term adopted against the
+/// model without a floor must still improve the fit with the floor (the same likelihood-ratio
+/// test, p < `DRIFT_TEST_P`) unless the bins below the fit range, where a floor adds nothing,
+/// show excess power against the fit without the term at the same level (then the floor took
+/// up drift power above the range and the term stays). Returns the fit with the floor and
+/// without the term when the term is no longer asked for; `None` keeps `fit` as it is.
+pub(crate) fn retest_beside_floor(
+    periodogram: &Periodogram,
+    options: &SpectrumFitOptions,
+    fit: &SpectrumFit,
+) -> Option<SpectrumFit> {
+    if fit.flicker.is_none() || !fit.model.noise_floor {
+        return None;
+    }
+    let without_term = SpectrumFitOptions {
+        flicker: false,
+        model: fit.model,
+        ..options.clone()
+    };
+    let refit =
+        spectrum::fit_spectrum_from_theta(periodogram, &without_term, fit.theta.clone()).ok()?;
+    let statistic = (2.0 * (refit.whittle_cost - fit.whittle_cost)).max(0.0);
+    let p_value = ChiSquared::new(1.0).map_or(f64::NAN, |d| d.sf(statistic));
+    let below_range_drift =
+        below_range_excess(periodogram, &refit).is_some_and(|b| b.p_value < DRIFT_TEST_P);
+    (p_value >= DRIFT_TEST_P && !below_range_drift).then_some(refit)
+}
+
 /// Excess power below the fit range: the mean over the plain periodogram's bins from the first
 /// up to the fit range's lower end of P_k / S(f_k), S the fitted model, and its upper-tail
 /// p-value under the Gamma(n, n) distribution of a mean of n independent exponential

@@ -146,15 +146,23 @@ fn clean_records_rarely_take_the_drift_path() {
     let mut rng = generator(99);
     let records = 1000;
     let mut taken = 0;
+    // The noise floor's own test (1 % false inclusion, `spectrum::floor`) makes equipartition
+    // dependent on about 10 of 1000 clean records; more than 22 has probability about 1e-4
+    // (Poisson with mean 10).
+    let mut dependent = 0;
     for _ in 0..records {
         let o = calibrate_record(plan.record(&mut rng));
         if o.drift_severity.is_some() {
             taken += 1;
         } else {
-            assert!(o.equipartition_independent);
+            dependent += usize::from(!o.equipartition_independent);
             assert!(!o.excluded[1] || o.z[1].is_none());
         }
     }
+    assert!(
+        dependent <= 22,
+        "equipartition dependent on {dependent} of {records}"
+    );
     eprintln!("clean records: drift path taken on {taken} of {records}");
     assert!(
         taken <= 8,
@@ -187,11 +195,11 @@ fn under_strong_drift_beta_in_volts_stays_unbiased_with_honest_errors() {
         rec.unit = PositionUnit::Volt;
         let cal = calibrate(&rec, &RunConditions::new(1.0e-6, 25.0), &options).expect("calibrates");
         let axis = &cal.axes[0];
-        assert!(
-            axis.findings
-                .iter()
-                .any(|f| f.code == "low-frequency-drift" && f.severity == Severity::Warning)
-        );
+        let warned = axis
+            .findings
+            .iter()
+            .any(|f| f.code == "low-frequency-drift" && f.severity == Severity::Warning);
+        assert!(warned, "{:?}", axis.findings);
         let beta = axis.sensitivity_nm_per_v.expect("volts give beta");
         values.push(beta.value);
         ses.push(beta.se);

@@ -21,6 +21,7 @@ fn filtered_record(seed: u64, n: usize, sample_rate_hz: f64, filter: DetectorFil
         filter: FilterSetting::Fixed(filter),
         hydro: None,
         exposure_s: None,
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let mut rng = generator(seed);

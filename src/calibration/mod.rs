@@ -20,6 +20,8 @@ mod drift;
 mod drift_tests;
 #[cfg(test)]
 mod exclusion_tests;
+#[cfg(test)]
+mod noise_floor_tests;
 pub mod principal;
 #[cfg(test)]
 mod principal_tests;
@@ -40,7 +42,9 @@ use crate::drag::{self, AxisOrientation, DragError};
 use crate::equipartition::{Detrend, EquipartitionError, VarianceEstimate};
 use crate::findings::Finding;
 use crate::recording::Recording;
-use crate::spectrum::{self, FilterSetting, FitRange, NarrowPeak, SpectrumFit, SpectrumFitError};
+use crate::spectrum::{
+    self, FilterSetting, FitRange, NarrowPeak, NoiseFloorMode, SpectrumFit, SpectrumFitError,
+};
 use crate::water::{self, BOLTZMANN_J_PER_K, WaterError, ZERO_CELSIUS_K};
 
 pub use crate::estimate::Estimate;
@@ -126,6 +130,9 @@ pub struct AnalysisOptions {
     /// samples rotated by the measured angle) instead of along the detector's axes; nanometre
     /// data only.
     pub principal_axes: bool,
+    /// Whether the white noise floor enters the spectral model (default: when a
+    /// likelihood-ratio test says the data support it, see `spectrum::fit_spectrum_with_floor`).
+    pub noise_floor: NoiseFloorMode,
 }
 
 impl Default for AnalysisOptions {
@@ -142,8 +149,21 @@ impl Default for AnalysisOptions {
             exclude_peaks: true,
             axial_axes: vec!["z".to_string()],
             principal_axes: false,
+            noise_floor: NoiseFloorMode::Auto,
         }
     }
+}
+
+/// The white noise floor of one axis as the report shows it (signal units of the record).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct NoiseFloorSummary {
+    /// The likelihood-ratio test and the fit without the floor.
+    pub test: spectrum::NoiseFloorTest,
+    /// The fitted level, when the floor is in the model.
+    pub level: Option<spectrum::NoiseFloorLevel>,
+    /// sigma_n^2 divided by the measured variance (before the floor was subtracted), when the
+    /// floor is in the model and the variance exists.
+    pub variance_share: Option<f64>,
 }
 
 /// Why a recording could not be calibrated.
@@ -258,6 +278,9 @@ pub struct MethodFailure {
 /// The calibration of one axis.
 #[derive(Clone, Debug)]
 pub struct AxisCalibration {
+    /// The white noise floor: its test and, when it is in the model, its level and share of
+    /// the measured variance; `None` with the floor off or without a spectral fit.
+    pub noise_floor: Option<NoiseFloorSummary>,
     pub axis: String,
     pub orientation: AxisOrientation,
     /// Wall factor gamma / gamma0 (1 in bulk).

@@ -113,6 +113,7 @@ fn filtered_volt_record(
         filter: FilterSetting::Fixed(filter),
         hydro: None,
         exposure_s: None,
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let x = gaussian_record(|f| model.one_sided_psd(f, &theta), fs, n, rng);
@@ -210,6 +211,7 @@ fn frequency_dependent_drag_modelled_gives_the_right_consensus_for_large_beads()
             f_m_hz: h.f_m_hz,
         }),
         exposure_s: None,
+        noise_floor: false,
     };
     let theta = [fc.ln(), d.ln()];
     let options = AnalysisOptions {

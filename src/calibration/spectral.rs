@@ -6,8 +6,8 @@ use super::drift::{self, FlickerTest};
 use super::{AnalysisOptions, CalibrationError, Physics, RunConditions};
 use crate::drag;
 use crate::spectrum::{
-    self, HydroTerms, NarrowPeak, Periodogram, SpectralLine, SpectrumFit, SpectrumFitOptions,
-    SpectrumModel,
+    self, HydroTerms, NarrowPeak, NoiseFloorTest, Periodogram, SpectralLine, SpectrumFit,
+    SpectrumFitOptions, SpectrumModel,
 };
 
 /// What the spectral stage found. The periodogram always exists (a record too short for one
@@ -27,6 +27,8 @@ pub(crate) struct SpectralStage {
     /// The likelihood-ratio test of a 1/f drift term in the fit (`drift::flicker_refit`); when
     /// it adopted the term, `fit` is the fit with it.
     pub(crate) flicker_test: Option<FlickerTest>,
+    /// The white noise floor's test, when the mode is not `off` and the fit worked.
+    pub(crate) noise_floor_test: Option<NoiseFloorTest>,
 }
 
 /// The model of the measured spectrum these options and conditions describe.
@@ -45,6 +47,7 @@ pub(crate) fn spectrum_model(
         filter: options.filter,
         hydro,
         exposure_s: options.exposure_time_s,
+        noise_floor: false,
     }
 }
 
@@ -105,22 +108,54 @@ pub(crate) fn spectral_stage(
     if options.exclude_peaks {
         fit_options.excluded_bins = excluded_bins(&peaks, periodogram.psd.len());
     }
-    let mut fit = spectrum::fit_spectrum(&periodogram, &fit_options, None).map_err(|e| {
+    // Low-frequency drift reaches into the fit range: a 1/f term is tried beside the model and
+    // kept when the data ask for it (see `drift`). This runs before the noise floor's test, since
+    // a floor would otherwise take up the drift's power at high frequencies; the drift test
+    // itself is guarded against a floor by its confirmation below the fit range.
+    let base = spectrum::fit_spectrum(&periodogram, &fit_options, None).map_err(|e| {
         CalibrationError::Spectrum {
             axis: name.to_string(),
             cause: e,
         }
     });
-    // Low-frequency drift reaches into the fit range: a 1/f term is tried beside the model and
-    // kept when the data ask for it (see `drift`).
     let mut flicker_test = None;
-    if let Ok(plain_fit) = &fit {
-        let (adopted, test) = drift::flicker_refit(&periodogram, &fit_options, plain_fit);
-        flicker_test = test;
-        if let Some(refit) = adopted {
-            fit = Ok(refit);
+    let base = match base {
+        Ok(plain_fit) => {
+            let (adopted, test) = drift::flicker_refit(&periodogram, &fit_options, &plain_fit);
+            flicker_test = test;
+            if adopted.is_some() {
+                fit_options.flicker = true;
+            }
+            Ok(adopted.unwrap_or(plain_fit))
         }
-    }
+        Err(e) => Err(e),
+    };
+    // The white noise floor enters the model when the mode and the likelihood-ratio test say so
+    // (`spectrum::fit_spectrum_with_floor`); the stage's model is then the one with the floor,
+    // whose theta the fit holds.
+    let (fit, noise_floor_test) = match base {
+        Ok(base) => match spectrum::fit_spectrum_with_floor(
+            &periodogram,
+            &fit_options,
+            options.noise_floor,
+            Some(base),
+        ) {
+            Ok((fit, test)) => (Ok(fit), test),
+            Err(e) => (
+                Err(CalibrationError::Spectrum {
+                    axis: name.to_string(),
+                    cause: e,
+                }),
+                None,
+            ),
+        },
+        Err(e) => (Err(e), None),
+    };
+    let fit = match fit {
+        Ok(f) => Ok(drift::retest_beside_floor(&periodogram, &fit_options, &f).unwrap_or(f)),
+        Err(e) => Err(e),
+    };
+    let model = fit.as_ref().map_or(model, |f| f.model);
     Ok(SpectralStage {
         periodogram,
         lines,
@@ -128,6 +163,7 @@ pub(crate) fn spectral_stage(
         model,
         fit,
         flicker_test,
+        noise_floor_test,
     })
 }
 

@@ -372,19 +372,47 @@ fn a_corner_frequency_near_nyquist_is_reported() {
 }
 
 #[test]
-fn white_detection_noise_fails_the_spectral_fit_and_the_methods_disagree() {
+fn white_detection_noise_is_fitted_as_a_floor_and_without_it_fails_the_spectral_fit() {
     // White noise of 4 nm rms on a thermal rms of about 9 nm flattens the spectrum at high
-    // frequency, which no Lorentzian describes, and adds variance that equipartition counts.
+    // frequency by the constant 2 sigma_n^2 / fs (shared PHYSICS.md section 12), which no
+    // Lorentzian describes, and adds variance that equipartition counts. With the floor off
+    // (the old model) the spectral fit fails and the methods disagree; with the default `auto`
+    // the likelihood-ratio test puts the floor in, the fit passes, the level comes out within
+    // 4 of its standard errors of the truth, and the `noise-floor` finding warns.
     let noisy = Disturbances {
         white_noise: 4.0,
         ..Disturbances::default()
     };
     let rec = record(80_000, 1 << 17, None, &noisy);
-    let cal = calibrate(&rec, &conditions(), &AnalysisOptions::default()).expect("calibrates");
+    let off = AnalysisOptions {
+        noise_floor: crate::spectrum::NoiseFloorMode::Off,
+        ..AnalysisOptions::default()
+    };
+    let cal = calibrate(&rec, &conditions(), &off).expect("calibrates");
     let axis = &cal.axes[0];
     let codes: Vec<_> = axis.findings.iter().map(|f| f.code).collect();
     assert!(codes.contains(&"poor-spectral-fit"), "{codes:?}");
     assert_eq!(axis.verdict, Verdict::Inconsistent);
+
+    let cal = calibrate(&rec, &conditions(), &AnalysisOptions::default()).expect("calibrates");
+    let axis = &cal.axes[0];
+    let codes: Vec<_> = axis.findings.iter().map(|f| f.code).collect();
+    assert!(!codes.contains(&"poor-spectral-fit"), "{codes:?}");
+    let finding = axis
+        .findings
+        .iter()
+        .find(|f| f.code == "noise-floor")
+        .expect("noise-floor finding");
+    assert_eq!(finding.severity, crate::findings::Severity::Warning);
+    let level = axis
+        .noise_floor
+        .and_then(|n| n.level)
+        .expect("the floor is in the model");
+    let truth = 2.0 * 4.0 * 4.0 / FS;
+    assert!(
+        (level.level - truth).abs() < 4.0 * level.level_se,
+        "{level:?} against {truth}"
+    );
 }
 
 #[test]

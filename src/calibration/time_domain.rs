@@ -4,7 +4,8 @@
 
 use super::{AnalysisOptions, CalibrationError, Histogram};
 use crate::autocorrelation::{self, ExponentialFit, TimeDomainModel};
-use crate::equipartition::{self, VarianceEstimate};
+use crate::equipartition::{self, EquipartitionError, VarianceEstimate};
+use crate::estimate::Estimate;
 use std::f64::consts::PI;
 
 /// The spectral fit's account of what the detector adds, for the time-domain methods: the one
@@ -15,6 +16,9 @@ pub(crate) struct SpectralAccount {
     pub(crate) model: TimeDomainModel,
     pub(crate) corner_frequency_hz: f64,
     pub(crate) diffusion: f64,
+    /// The white noise variance sigma_n^2 = P_n / (2 dt) of the spectral fit's floor
+    /// (signal-unit^2, with its standard error), when the floor is in the model.
+    pub(crate) noise_variance: Option<Estimate>,
 }
 
 impl SpectralAccount {
@@ -33,6 +37,9 @@ pub(crate) struct TimeDomainStage {
     /// model leaves the variance as it is); it comes from the spectral fit, so equipartition
     /// corrected by it is no longer independent of the spectrum.
     pub(crate) variance_factor: f64,
+    /// Whether the spectral fit's white noise floor was subtracted from the variance (which
+    /// then rests on the spectral fit too).
+    pub(crate) noise_subtracted: bool,
     /// The position histogram, when the variance exists.
     pub(crate) histogram: Option<Histogram>,
 }
@@ -69,7 +76,14 @@ pub(crate) fn time_domain_stage(
         )
         .map(|fit| fit.decay),
         None => {
-            autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &options.acf)
+            // White noise leaves the lags the fit uses alone but adds to their scatter.
+            let acf_options = autocorrelation::AcfFitOptions {
+                white_noise_variance: account
+                    .and_then(|a| a.noise_variance)
+                    .map_or(0.0, |n| n.value),
+                ..options.acf.clone()
+            };
+            autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &acf_options)
         }
     }
     .map_err(|e| CalibrationError::Autocorrelation {
@@ -83,11 +97,27 @@ pub(crate) fn time_domain_stage(
         .map(|a| autocorrelation::variance_factor(&a.model, a.corner_frequency_hz))
         .filter(|f| f.is_finite() && *f > 0.0)
         .unwrap_or(1.0);
+    // White detector noise adds sigma_n^2 = P_n / (2 dt) to the measured variance (P_n is the
+    // spectral fit's one-sided floor; shared PHYSICS.md section 12): it is subtracted before the
+    // filter's factor, which applies to the bead's part only. The standard errors are added in
+    // quadrature, neglecting the covariance between the sample variance (dominated by the
+    // low-frequency plateau) and the floor (fixed by the top of the band); an approximation.
+    let noise_variance = account.and_then(|a| a.noise_variance);
     let variance = equipartition::variance(samples, sample_rate_hz, options.detrend, &acov)
-        .map(|mut v| {
+        .and_then(|mut v| {
+            if let Some(noise) = noise_variance {
+                if !(noise.value < v.variance) {
+                    return Err(EquipartitionError::NoiseFloorExceedsVariance {
+                        variance: v.variance,
+                        noise_variance: noise.value,
+                    });
+                }
+                v.variance -= noise.value;
+                v.variance_se = v.variance_se.hypot(noise.se);
+            }
             v.variance /= variance_factor;
             v.variance_se /= variance_factor;
-            v
+            Ok(v)
         })
         .map_err(|e| CalibrationError::Equipartition {
             axis: name.to_string(),
@@ -101,6 +131,7 @@ pub(crate) fn time_domain_stage(
         acf,
         variance,
         variance_factor,
+        noise_subtracted: noise_variance.is_some(),
         histogram,
     }
 }

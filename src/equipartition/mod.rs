@@ -43,6 +43,17 @@ pub enum EquipartitionError {
         /// Its value.
         value: f64,
     },
+    /// The white noise floor fitted to the spectrum holds all of the measured variance, so
+    /// nothing is left for the bead.
+    #[error(
+        "the white noise floor of the spectral fit, {noise_variance:.4e} signal-unit^2, is not smaller than the measured variance {variance:.4e}; the record is mostly detector noise: check the detector signal, or set the noise floor off"
+    )]
+    NoiseFloorExceedsVariance {
+        /// The sample variance, signal-unit^2.
+        variance: f64,
+        /// The floor's variance sigma_n^2 = P_n / (2 dt), signal-unit^2.
+        noise_variance: f64,
+    },
     /// The residuals after detrending are all zero.
     #[error(
         "the samples have zero variance after {detrend} detrending; the trace is constant (or exactly linear), check the channel and the detector"

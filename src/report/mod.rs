@@ -203,6 +203,10 @@ pub struct AxisReport {
     pub spectrum_fit: Option<SpectrumFitReport>,
     pub autocorrelation_fit: Option<AcfFitReport>,
     pub equipartition: Option<EquipartitionReport>,
+    /// The white noise floor of the spectral model and its likelihood-ratio test; null with
+    /// `noise_floor` off or without a spectral fit.
+    #[serde(default)]
+    pub noise_floor: Option<NoiseFloorReport>,
     /// Arrays for plotting; omitted where a caller asked for the summary only.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub plots: Option<Plots>,
@@ -312,6 +316,29 @@ pub struct EquipartitionReport {
     pub detrend: String,
     /// Sinusoids fitted and subtracted before the autocorrelation and equipartition methods.
     pub lines_removed: Vec<LineReport>,
+}
+
+/// The white noise floor of one axis.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct NoiseFloorReport {
+    /// `auto` or `fit`.
+    pub mode: String,
+    /// Whether the floor is in the spectral model (and subtracted from equipartition's variance).
+    pub included: bool,
+    /// Likelihood-ratio statistic of the fit with the floor against the fit without it (0 when
+    /// the floor's best value is zero), the critical value `auto` compares it with, and its
+    /// p-value under the 50:50 mixture of chi-square with 0 and 1 degrees of freedom.
+    pub lr_statistic: f64,
+    pub critical_value: f64,
+    pub p_value: f64,
+    /// One-sided level P_n in `level_unit`; null when the floor is not in the model.
+    pub level: Option<ValueSe>,
+    /// `nm^2/Hz` or `V^2/Hz`.
+    pub level_unit: String,
+    /// The white noise variance P_n f_s / 2 in the equipartition variance's unit.
+    pub variance: Option<ValueSe>,
+    /// That variance over the measured variance.
+    pub variance_share: Option<f64>,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -628,6 +655,28 @@ fn axis_report(
                 Detrend::Linear => "linear",
             }
             .into(),
+        }),
+        noise_floor: a.noise_floor.as_ref().map(|n| NoiseFloorReport {
+            mode: match n.test.mode {
+                crate::spectrum::NoiseFloorMode::Fit => "fit",
+                crate::spectrum::NoiseFloorMode::Auto => "auto",
+                crate::spectrum::NoiseFloorMode::Off => "off",
+            }
+            .into(),
+            included: n.test.included,
+            lr_statistic: n.test.lr_statistic,
+            critical_value: crate::spectrum::NOISE_FLOOR_CRITICAL_LR,
+            p_value: n.test.p_value,
+            level: n.level.map(|l| ValueSe {
+                value: l.level,
+                se: l.level_se,
+            }),
+            level_unit: format!("{u}^2/Hz"),
+            variance: n.level.map(|l| ValueSe {
+                value: l.variance,
+                se: l.variance_se,
+            }),
+            variance_share: n.variance_share,
         }),
         plots,
     }

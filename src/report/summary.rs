@@ -139,6 +139,19 @@ pub fn summary_table(r: &CalibrationReport) -> String {
         );
     }
     for a in &r.axes {
+        if let Some(n) = a.noise_floor.as_ref().filter(|n| n.included)
+            && let (Some(level), Some(share)) = (&n.level, n.variance_share)
+        {
+            let _ = writeln!(
+                s,
+                "{}: white noise floor {:.3e} ± {:.1e} {} ({:.2} % of the variance), subtracted from equipartition",
+                a.axis,
+                level.value,
+                level.se,
+                n.level_unit,
+                100.0 * share
+            );
+        }
         for reason in &a.verdict_reasons {
             let _ = writeln!(s, "{}: {}", a.axis, reason);
         }

@@ -14,7 +14,7 @@ use crate::drag;
 use crate::equipartition::Detrend;
 use crate::ingest::{DEFAULT_TIME_TOLERANCE, Format, IngestOptions};
 use crate::recording::PositionUnit;
-use crate::spectrum::FilterSetting;
+use crate::spectrum::{FilterSetting, NoiseFloorMode};
 use std::collections::BTreeMap;
 
 pub use spec::{Absent, Flag, KEYS, Kind, Range, SPECS, SettingSpec, Value, parse_filter};
@@ -69,6 +69,15 @@ fn parse_bead_material(name: &str) -> Option<f64> {
     match spec::BEAD_MATERIAL_CHOICES.find(name)? {
         "polystyrene" => Some(drag::POLYSTYRENE_DENSITY_KG_PER_M3),
         "silica" => Some(drag::SILICA_DENSITY_KG_PER_M3),
+        _ => None,
+    }
+}
+
+fn parse_noise_floor(name: &str) -> Option<NoiseFloorMode> {
+    match spec::NOISE_FLOOR_CHOICES.find(name)? {
+        "auto" => Some(NoiseFloorMode::Auto),
+        "fit" => Some(NoiseFloorMode::Fit),
+        "off" => Some(NoiseFloorMode::Off),
         _ => None,
     }
 }
@@ -277,6 +286,9 @@ impl Settings {
                     ),
                 ));
             }
+        }
+        if let Some(m) = self.choice("noise_floor", parse_noise_floor)? {
+            analysis.noise_floor = m;
         }
         if let Some(d) = self.choice("detrend", parse_detrend)? {
             analysis.detrend = d;

@@ -353,6 +353,12 @@ pub const BEAD_MATERIAL_CHOICES: Choices = Choices {
     ],
 };
 
+/// Names of the `noise_floor` setting.
+pub const NOISE_FLOOR_CHOICES: Choices = Choices {
+    names: &["auto", "fit", "off"],
+    aliases: &[],
+};
+
 /// Every run setting, in the order they are listed to people. The order also fixes `KEYS`
 /// and the message that lists the known keys.
 pub const SPECS: &[SettingSpec] = &[
@@ -657,6 +663,21 @@ pub const SPECS: &[SettingSpec] = &[
         flag: Flag::Value {
             long: "exposure-time-s",
             value_name: "S",
+        },
+    },
+    SettingSpec {
+        key: "noise_floor",
+        label: "White noise floor",
+        kind: Kind::Choice(&NOISE_FLOOR_CHOICES),
+        unit: "",
+        help: "A constant white background in the spectral model: auto (fitted when a \
+               likelihood-ratio test at a 1 % false-inclusion rate says the data hold one), \
+               fit (always) or off.",
+        absent: Absent::Default("auto"),
+        example: "off",
+        flag: Flag::Value {
+            long: "noise-floor",
+            value_name: "MODE",
         },
     },
     SettingSpec {

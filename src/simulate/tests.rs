@@ -437,6 +437,7 @@ fn hydrodynamic_spectrum_equals_a_brute_force_image_sum_and_agrees_with_the_fitt
             filter: filter.map_or(FilterSetting::None, FilterSetting::Fixed),
             hydro: Some(hydro),
             exposure_s: None,
+            noise_floor: false,
         };
         let theta = [fc.ln(), d.ln()];
         for i in 0..=50 {

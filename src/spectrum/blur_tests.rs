@@ -27,6 +27,7 @@ fn camera_model(sample_rate_hz: f64, exposure_s: f64) -> SpectrumModel {
         filter: FilterSetting::None,
         hydro: None,
         exposure_s: Some(exposure_s),
+        noise_floor: false,
     }
 }
 

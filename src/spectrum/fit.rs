@@ -420,6 +420,51 @@ pub fn fit_spectrum(
         Some(s) => s,
         None => starting_values(&blocks, periodogram.sample_rate_hz),
     };
+    fit_blocks(periodogram, options, blocks, model.initial_theta(fc0, d0))
+}
+
+/// Fits `options.model` to the periodogram by maximum likelihood from the parameter vector
+/// `theta` (log space, see `model`), as `fit_spectrum` does from (fc, D).
+pub(crate) fn fit_spectrum_from_theta(
+    periodogram: &Periodogram,
+    options: &SpectrumFitOptions,
+    theta: Vec<f64>,
+) -> Result<SpectrumFit, SpectrumFitError> {
+    let (f_min_hz, f_max_hz) = options.resolved_range(periodogram);
+    if !(f_max_hz > f_min_hz && f_min_hz >= 0.0) {
+        return Err(SpectrumFitError::EmptyRange { f_min_hz, f_max_hz });
+    }
+    let blocks = block_periodogram(
+        periodogram,
+        f_min_hz,
+        f_max_hz,
+        &options.excluded_bins,
+        options.min_bins_per_block,
+        options.target_blocks,
+    );
+    let n_params = options.model.n_params();
+    if blocks.len() < n_params + 2 || theta.len() != n_params {
+        return Err(SpectrumFitError::TooFewBlocks {
+            f_min_hz,
+            f_max_hz,
+            n_blocks: blocks.len(),
+            n_params,
+        });
+    }
+    fit_blocks(periodogram, options, blocks, theta)
+}
+
+/// The maximum-likelihood fit of `options.model` to `blocks` of `periodogram` from `theta`.
+fn fit_blocks(
+    periodogram: &Periodogram,
+    options: &SpectrumFitOptions,
+    blocks: Vec<Block>,
+    mut theta: Vec<f64>,
+) -> Result<SpectrumFit, SpectrumFitError> {
+    let (f_min_hz, f_max_hz) = options.resolved_range(periodogram);
+    let model = &options.model;
+    let n_model_params = model.n_params();
+    let n_params = n_model_params + usize::from(options.flicker);
     let whittle = Whittle {
         model,
         blocks: &blocks,
@@ -429,7 +474,6 @@ pub fn fit_spectrum(
             .then(|| FlickerColumn::new(n_model_params, &blocks))
             .flatten(),
     };
-    let mut theta = model.initial_theta(fc0, d0);
     if whittle.flicker.is_some() {
         theta.push(0.0);
     }

@@ -15,15 +15,23 @@
 #[cfg(test)]
 mod blur_tests;
 mod fit;
+mod floor;
+#[cfg(test)]
+mod floor_tests;
 mod lines;
 mod model;
 mod peaks;
 #[cfg(test)]
 mod tests;
 
+pub(crate) use fit::fit_spectrum_from_theta;
 pub use fit::{
     FitRange, FlickerTerm, MIN_PARAMETER_RCOND, PlainLorentzianFit, SpectrumFit, SpectrumFitError,
     SpectrumFitOptions, fit_spectrum, likelihood_gain, plain_lorentzian_wls,
+};
+pub use floor::{
+    NOISE_FLOOR_CRITICAL_LR, NOISE_FLOOR_FALSE_INCLUSION, NoiseFloorLevel, NoiseFloorMode,
+    NoiseFloorTest, boundary_mixture_p_value, fit_spectrum_with_floor,
 };
 pub use lines::{SpectralLine, fit_line, subtract_lines};
 pub(crate) use model::Params;

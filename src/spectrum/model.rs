@@ -2,7 +2,8 @@
 //!
 //! The parameters travel as a plain vector `theta` in log space so the fit is unconstrained:
 //! theta = [ln fc/Hz, ln D/(unit^2/s)] and, when the detector filter is fitted, also
-//! [ln f3dB/Hz, logit(alpha^2)].
+//! [ln f3dB/Hz, logit(alpha^2)], and last, when the white noise floor is modelled,
+//! [ln P_n/(unit^2/Hz)].
 
 use std::f64::consts::PI;
 
@@ -63,6 +64,12 @@ pub struct SpectrumModel {
     /// Exposure time W of a camera, s (each sample is the box-car average of the position over
     /// W within its frame, 0 < W <= 1/sample_rate_hz); `None` for instantaneous samples.
     pub exposure_s: Option<f64>,
+    /// A white background of constant one-sided level P_n (signal-unit^2/Hz), fitted as the last
+    /// entry of theta: detector, amplifier and digitiser noise that is independent from sample
+    /// to sample. White noise of variance sigma_n^2 adds 2 sigma_n^2 dt to the one-sided
+    /// spectrum at every frequency, aliases included (shared PHYSICS.md section 12), and
+    /// nothing to the autocovariance beyond lag 0.
+    pub noise_floor: bool,
 }
 
 /// Number of alias images summed on each side when no closed form applies; the rest is added
@@ -188,6 +195,8 @@ pub(crate) struct Params {
     pub(crate) fc: f64,
     pub(crate) d: f64,
     pub(crate) filter: Option<DetectorFilter>,
+    /// One-sided level of the white noise floor, signal-unit^2/Hz (0 when not modelled).
+    pub(crate) noise_floor: f64,
 }
 
 fn logistic(x: f64) -> f64 {
@@ -195,21 +204,32 @@ fn logistic(x: f64) -> f64 {
 }
 
 impl SpectrumModel {
-    /// Number of fitted parameters (2, or 4 with a fitted filter).
+    /// Number of fitted parameters (2, or 4 with a fitted filter, plus 1 with the noise floor).
     pub fn n_params(&self) -> usize {
-        match self.filter {
+        let base = match self.filter {
             FilterSetting::Fitted(_) => 4,
             _ => 2,
-        }
+        };
+        base + usize::from(self.noise_floor)
     }
 
-    /// Initial parameter vector from starting values of fc and D.
+    /// Index of ln P_n in theta, when the noise floor is modelled.
+    pub fn noise_floor_index(&self) -> Option<usize> {
+        self.noise_floor.then(|| self.n_params() - 1)
+    }
+
+    /// Initial parameter vector from starting values of fc and D (and, with the noise floor, a
+    /// starting level of one millionth of D / (pi^2 fc^2), the Lorentzian's plateau; the
+    /// floor fit in `spectrum::floor` starts from a better value).
     pub(crate) fn initial_theta(&self, fc: f64, d: f64) -> Vec<f64> {
         let mut theta = vec![fc.ln(), d.ln()];
         if let FilterSetting::Fitted(f) = self.filter {
             let a2 = (f.alpha * f.alpha).clamp(1e-4, 1.0 - 1e-4);
             theta.push(f.f3db_hz.ln());
             theta.push((a2 / (1.0 - a2)).ln());
+        }
+        if self.noise_floor {
+            theta.push((1e-6 * d / (PI * PI * fc * fc)).ln());
         }
         theta
     }
@@ -225,7 +245,16 @@ impl SpectrumModel {
                 alpha: logistic(theta.get(3).copied().unwrap_or(0.0)).sqrt(),
             }),
         };
-        Params { fc, d, filter }
+        let noise_floor = match self.noise_floor_index() {
+            Some(i) => theta.get(i).copied().map_or(0.0, f64::exp),
+            None => 0.0,
+        };
+        Params {
+            fc,
+            d,
+            filter,
+            noise_floor,
+        }
     }
 
     /// What the detector would see at one frequency without aliasing.
@@ -285,7 +314,15 @@ impl SpectrumModel {
     /// ratio of the full model to the Lorentzian at the cut-off, which is constant to first
     /// order out there (derived here; the tail is a few per cent of the total at f_Nyquist for
     /// M = 24, less under an exposure).
+    ///
+    /// The white noise floor P_n, when modelled, is added to the result: it is the same
+    /// constant with and without aliasing.
     pub(crate) fn psd_params(&self, f_hz: f64, p: &Params) -> f64 {
+        self.signal_psd(f_hz, p) + p.noise_floor
+    }
+
+    /// The bead's part of `psd_params`, without the white noise floor.
+    fn signal_psd(&self, f_hz: f64, p: &Params) -> f64 {
         if !self.aliasing {
             let box_gain = self.exposure_s.map_or(1.0, |w| sinc_squared(PI * f_hz * w));
             return self.unaliased(f_hz, p) * box_gain;
@@ -349,6 +386,11 @@ impl SpectrumModel {
     /// expanded so that no power of c divides (a fast component of a filter has c near 0).
     /// Without exposure (C_0 = A, E = A c) it is the form above; the tests check both against
     /// the double sums.
+    ///
+    /// The white noise floor is the limit c -> 0 of an exponential component: the samples'
+    /// term vanishes (the periodogram of white noise is unbiased at every segment length), and
+    /// the differences' term is P_n cos theta / (L (1 - cos theta)) (the formula above with
+    /// c = 0, 2 A dt = P_n; derived here).
     pub(crate) fn leakage_params(
         &self,
         f_hz: f64,
@@ -367,40 +409,46 @@ impl SpectrumModel {
         if differenced && !(gain > 0.0) {
             return 0.0;
         }
-        components
-            .iter()
-            .filter(|(_, variance)| *variance != 0.0)
-            .map(|&(f_j, variance)| {
-                let c = (-2.0 * PI * f_j * dt).exp();
-                let d = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
-                let c_l = c.powf(l);
-                let bracket = c.mul_add(c, 1.0).mul_add(cos_theta, -2.0 * c);
-                let Some(w) = self.exposure_s else {
-                    let edge = 2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * variance * dt;
-                    return if differenced {
-                        let one_minus_c = 1.0 - c;
-                        edge * one_minus_c * one_minus_c / gain
-                    } else {
-                        -edge * c
+        let floor_term = if differenced && p.noise_floor > 0.0 {
+            2.0 * p.noise_floor * cos_theta / (l * gain)
+        } else {
+            0.0
+        };
+        floor_term
+            + components
+                .iter()
+                .filter(|(_, variance)| *variance != 0.0)
+                .map(|&(f_j, variance)| {
+                    let c = (-2.0 * PI * f_j * dt).exp();
+                    let d = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
+                    let c_l = c.powf(l);
+                    let bracket = c.mul_add(c, 1.0).mul_add(cos_theta, -2.0 * c);
+                    let Some(w) = self.exposure_s else {
+                        let edge = 2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * variance * dt;
+                        return if differenced {
+                            let one_minus_c = 1.0 - c;
+                            edge * one_minus_c * one_minus_c / gain
+                        } else {
+                            -edge * c
+                        };
                     };
-                };
-                let (lag_zero, lag_one) = blurred_lags(f_j, variance, dt, w);
-                if differenced {
-                    let u = cos_theta;
-                    let quadratic = (4.0 * u).mul_add(u, (-2.0f64).mul_add(u, -2.0));
-                    let n_c = (c * c).mul_add(
-                        quadratic,
-                        c.mul_add((4.0 * u * u).mul_add(-u, 4.0), quadratic),
-                    );
-                    let one_minus_c = 1.0 - c;
-                    let end = c.powf(l - 1.0) * one_minus_c * one_minus_c * bracket;
-                    let braces = lag_zero.mul_add(u, lag_one * (n_c - end) / (d * d));
-                    4.0 * dt / (l * gain) * braces
-                } else {
-                    -2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * lag_one * dt
-                }
-            })
-            .sum()
+                    let (lag_zero, lag_one) = blurred_lags(f_j, variance, dt, w);
+                    if differenced {
+                        let u = cos_theta;
+                        let quadratic = (4.0 * u).mul_add(u, (-2.0f64).mul_add(u, -2.0));
+                        let n_c = (c * c).mul_add(
+                            quadratic,
+                            c.mul_add((4.0 * u * u).mul_add(-u, 4.0), quadratic),
+                        );
+                        let one_minus_c = 1.0 - c;
+                        let end = c.powf(l - 1.0) * one_minus_c * one_minus_c * bracket;
+                        let braces = lag_zero.mul_add(u, lag_one * (n_c - end) / (d * d));
+                        4.0 * dt / (l * gain) * braces
+                    } else {
+                        -2.0 * (1.0 - c_l) / l * bracket / (d * d) * 2.0 * lag_one * dt
+                    }
+                })
+                .sum::<f64>()
     }
 
     /// Expected one-sided PSD at `f_hz` for parameters `theta`.

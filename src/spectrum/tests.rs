@@ -15,6 +15,7 @@ fn ideal_model(sample_rate_hz: f64) -> SpectrumModel {
         filter: FilterSetting::None,
         hydro: None,
         exposure_s: None,
+        noise_floor: false,
     }
 }
 
@@ -888,6 +889,7 @@ fn filtered_spectrum_in_closed_form_equals_the_direct_alias_sum() {
             filter: FilterSetting::Fixed(filter),
             hydro: None,
             exposure_s: None,
+            noise_floor: false,
         };
         let theta = [fc.ln(), d.ln()];
         let m = 200_000i64;
@@ -929,6 +931,7 @@ fn expected_periodogram_of_short_segments_equals_the_autocovariance_double_sum()
             filter: filter.map_or(FilterSetting::None, FilterSetting::Fixed),
             hydro: None,
             exposure_s: None,
+            noise_floor: false,
         };
         let p = model.decode(&[fc.ln(), d.ln()]);
         let acov = |m: i64| {

@@ -111,6 +111,7 @@ fn declared_spectrum(model: &serde_json::Value, sample_rate_hz: f64) -> Spectrum
         filter: filter.map_or(FilterSetting::None, FilterSetting::Fixed),
         hydro,
         exposure_s: None,
+        noise_floor: false,
     };
     Box::new(move |f: f64| {
         let thermal = match exposure {
