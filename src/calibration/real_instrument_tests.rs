@@ -241,3 +241,68 @@ fn frequency_dependent_drag_modelled_gives_the_right_consensus_for_large_beads()
         "autocorrelation: mean z {mean_acf_z}"
     );
 }
+
+#[test]
+fn drag_left_out_is_named_by_a_finding_and_plain_records_do_not_raise_it() {
+    // The drag row with `hydrodynamics` off: a 3 um polystyrene bead in water at 25 C, 100 kHz,
+    // 2^17 samples, spectrum with frequency-dependent drag (Stokes 1851 in the form of
+    // Berg-Sorensen & Flyvbjerg, Rev. Sci. Instrum. 75, 594 (2004)), synthesised exactly; and
+    // the plain aliased Lorentzian of the same fc and D (Berg-Sorensen & Flyvbjerg 2004). The
+    // finding must fire on every drag record (20, seed 37: the drag costs tens of per cent
+    // there) and on at most 2 of 40 plain records (seed 38; the rule's false-alarm rate is at
+    // most about 1/1000, so 3 or more of 40 has probability below 1e-5).
+    let diameter = 3.0e-6;
+    let conditions = RunConditions::new(diameter, 25.0);
+    let phys = physics(&conditions).expect("valid conditions");
+    let gamma = phys.stokes_drag_kg_per_s.value;
+    let fc = KAPPA_PN_PER_NM * 1e-3 / (2.0 * PI * gamma);
+    let d = phys.thermal_energy_j / gamma * 1e18;
+    let fs = 100_000.0;
+    let h = crate::drag::hydrodynamic_frequencies(
+        phys.viscosity_pa_s,
+        phys.fluid_density_kg_per_m3,
+        conditions.bead_density_kg_per_m3,
+        diameter / 2.0,
+    );
+    let hydro = crate::spectrum::SpectrumModel {
+        sample_rate_hz: fs,
+        aliasing: true,
+        filter: FilterSetting::None,
+        hydro: Some(crate::spectrum::HydroTerms {
+            f_nu_hz: h.f_nu_hz,
+            f_m_hz: h.f_m_hz,
+        }),
+        exposure_s: None,
+        noise_floor: false,
+    };
+    let theta = [fc.ln(), d.ln()];
+    let options = AnalysisOptions {
+        hydrodynamics: false,
+        ..AnalysisOptions::default()
+    };
+    let fires = |x: Vec<f64>| {
+        let cal = calibrate(&one_axis(x, fs), &conditions, &options).expect("calibrates");
+        cal.axes[0]
+            .findings
+            .iter()
+            .any(|f| f.code == "drag-unmodelled" && f.message.contains("--hydrodynamics on"))
+    };
+    let mut rng = generator(37);
+    for _ in 0..20 {
+        let x = gaussian_record(|f| hydro.one_sided_psd(f, &theta), fs, 1 << 17, &mut rng);
+        assert!(fires(x), "a drag record without the finding");
+    }
+    let mut rng = generator(38);
+    let mut false_alarms = 0;
+    for _ in 0..40 {
+        let x = gaussian_record(
+            |f| aliased_lorentzian_one_sided(f, fc, d, fs),
+            fs,
+            1 << 17,
+            &mut rng,
+        );
+        false_alarms += usize::from(fires(x));
+    }
+    eprintln!("drag-unmodelled on plain records: {false_alarms} of 40");
+    assert!(false_alarms <= 2, "{false_alarms} of 40 plain records");
+}
