@@ -178,17 +178,11 @@ fn with_a_strong_filter_and_many_windows_beta_keeps_honest_errors() {
     assert!((0.58..0.78).contains(&covered), "one-se coverage {covered}");
 }
 
-#[test]
-fn frequency_dependent_drag_modelled_gives_the_right_consensus_for_large_beads() {
-    // Row four of the real-instrument table: a 3 um polystyrene bead in water at 25 C, whose
-    // spectrum carries frequency-dependent drag (Stokes 1851 in the form of Berg-Sorensen &
-    // Flyvbjerg, Rev. Sci. Instrum. 75, 594 (2004)), 100 kHz. Before, with the drag modelled,
-    // the consensus was still 4 to 21 % low because the plain-exponential autocorrelation fit
-    // took weight; now that fit models the hydrodynamic autocovariance (the numerical transform
-    // of the same spectrum), and equipartition needs no change (the variance stays kB T /
-    // kappa).
-    // 40 records: each within 4.5 reported se (a correct estimator fails that once in 10^5
-    // records), and the mean z within 0.6 (3.8 sd of the mean of 40).
+/// The drag row's record: a 3 um polystyrene bead in water at 25 C in the reference trap,
+/// sampled at 100 kHz, with its spectrum carrying frequency-dependent drag (Stokes 1851 in the
+/// form of Berg-Sorensen & Flyvbjerg, Rev. Sci. Instrum. 75, 594 (2004)): the conditions, fc
+/// (Hz), D (nm^2/s), the sample rate (Hz) and the spectral model with the drag.
+fn three_micron_drag_row() -> (RunConditions, f64, f64, f64, crate::spectrum::SpectrumModel) {
     let diameter = 3.0e-6;
     let conditions = RunConditions::new(diameter, 25.0);
     let phys = physics(&conditions).expect("valid conditions");
@@ -213,6 +207,21 @@ fn frequency_dependent_drag_modelled_gives_the_right_consensus_for_large_beads()
         exposure_s: None,
         noise_floor: false,
     };
+    (conditions, fc, d, fs, model)
+}
+
+#[test]
+fn frequency_dependent_drag_modelled_gives_the_right_consensus_for_large_beads() {
+    // Row four of the real-instrument table: a 3 um polystyrene bead in water at 25 C, whose
+    // spectrum carries frequency-dependent drag (Stokes 1851 in the form of Berg-Sorensen &
+    // Flyvbjerg, Rev. Sci. Instrum. 75, 594 (2004)), 100 kHz. Before, with the drag modelled,
+    // the consensus was still 4 to 21 % low because the plain-exponential autocorrelation fit
+    // took weight; now that fit models the hydrodynamic autocovariance (the numerical transform
+    // of the same spectrum), and equipartition needs no change (the variance stays kB T /
+    // kappa).
+    // 40 records: each within 4.5 reported se (a correct estimator fails that once in 10^5
+    // records), and the mean z within 0.6 (3.8 sd of the mean of 40).
+    let (conditions, fc, d, fs, model) = three_micron_drag_row();
     let theta = [fc.ln(), d.ln()];
     let options = AnalysisOptions {
         hydrodynamics: true,
@@ -251,30 +260,7 @@ fn drag_left_out_is_named_by_a_finding_and_plain_records_do_not_raise_it() {
     // finding must fire on every drag record (20, seed 37: the drag costs tens of per cent
     // there) and on at most 2 of 40 plain records (seed 38; the rule's false-alarm rate is at
     // most about 1/1000, so 3 or more of 40 has probability below 1e-5).
-    let diameter = 3.0e-6;
-    let conditions = RunConditions::new(diameter, 25.0);
-    let phys = physics(&conditions).expect("valid conditions");
-    let gamma = phys.stokes_drag_kg_per_s.value;
-    let fc = KAPPA_PN_PER_NM * 1e-3 / (2.0 * PI * gamma);
-    let d = phys.thermal_energy_j / gamma * 1e18;
-    let fs = 100_000.0;
-    let h = crate::drag::hydrodynamic_frequencies(
-        phys.viscosity_pa_s,
-        phys.fluid_density_kg_per_m3,
-        conditions.bead_density_kg_per_m3,
-        diameter / 2.0,
-    );
-    let hydro = crate::spectrum::SpectrumModel {
-        sample_rate_hz: fs,
-        aliasing: true,
-        filter: FilterSetting::None,
-        hydro: Some(crate::spectrum::HydroTerms {
-            f_nu_hz: h.f_nu_hz,
-            f_m_hz: h.f_m_hz,
-        }),
-        exposure_s: None,
-        noise_floor: false,
-    };
+    let (conditions, fc, d, fs, model) = three_micron_drag_row();
     let theta = [fc.ln(), d.ln()];
     let options = AnalysisOptions {
         hydrodynamics: false,
@@ -289,7 +275,7 @@ fn drag_left_out_is_named_by_a_finding_and_plain_records_do_not_raise_it() {
     };
     let mut rng = generator(37);
     for _ in 0..20 {
-        let x = gaussian_record(|f| hydro.one_sided_psd(f, &theta), fs, 1 << 17, &mut rng);
+        let x = gaussian_record(|f| model.one_sided_psd(f, &theta), fs, 1 << 17, &mut rng);
         assert!(fires(x), "a drag record without the finding");
     }
     let mut rng = generator(38);

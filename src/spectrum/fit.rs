@@ -393,6 +393,25 @@ pub fn fit_spectrum(
     options: &SpectrumFitOptions,
     start: Option<(f64, f64)>,
 ) -> Result<SpectrumFit, SpectrumFitError> {
+    let blocks = fitted_blocks(periodogram, options)?;
+    let (fc0, d0) = match start {
+        Some(s) => s,
+        None => starting_values(&blocks, periodogram.sample_rate_hz),
+    };
+    fit_blocks(
+        periodogram,
+        options,
+        blocks,
+        options.model.initial_theta(fc0, d0),
+    )
+}
+
+/// The blocks of the fit range that `fit_spectrum` and `fit_spectrum_from_theta` fit: an empty
+/// range, or fewer blocks than the parameters (a 1/f term included) plus two, is an error.
+fn fitted_blocks(
+    periodogram: &Periodogram,
+    options: &SpectrumFitOptions,
+) -> Result<Vec<Block>, SpectrumFitError> {
     let (f_min_hz, f_max_hz) = options.resolved_range(periodogram);
     if !(f_max_hz > f_min_hz && f_min_hz >= 0.0) {
         return Err(SpectrumFitError::EmptyRange { f_min_hz, f_max_hz });
@@ -405,9 +424,7 @@ pub fn fit_spectrum(
         options.min_bins_per_block,
         options.target_blocks,
     );
-    let model = &options.model;
-    let n_model_params = model.n_params();
-    let n_params = n_model_params + usize::from(options.flicker);
+    let n_params = options.model.n_params() + usize::from(options.flicker);
     if blocks.len() < n_params + 2 {
         return Err(SpectrumFitError::TooFewBlocks {
             f_min_hz,
@@ -416,11 +433,7 @@ pub fn fit_spectrum(
             n_params,
         });
     }
-    let (fc0, d0) = match start {
-        Some(s) => s,
-        None => starting_values(&blocks, periodogram.sample_rate_hz),
-    };
-    fit_blocks(periodogram, options, blocks, model.initial_theta(fc0, d0))
+    Ok(blocks)
 }
 
 /// Fits `options.model` to the periodogram by maximum likelihood from the parameter vector
@@ -430,25 +443,14 @@ pub(crate) fn fit_spectrum_from_theta(
     options: &SpectrumFitOptions,
     theta: Vec<f64>,
 ) -> Result<SpectrumFit, SpectrumFitError> {
-    let (f_min_hz, f_max_hz) = options.resolved_range(periodogram);
-    if !(f_max_hz > f_min_hz && f_min_hz >= 0.0) {
-        return Err(SpectrumFitError::EmptyRange { f_min_hz, f_max_hz });
-    }
-    let blocks = block_periodogram(
-        periodogram,
-        f_min_hz,
-        f_max_hz,
-        &options.excluded_bins,
-        options.min_bins_per_block,
-        options.target_blocks,
-    );
-    let n_params = options.model.n_params();
-    if blocks.len() < n_params + 2 || theta.len() != n_params {
+    let blocks = fitted_blocks(periodogram, options)?;
+    if theta.len() != options.model.n_params() {
+        let (f_min_hz, f_max_hz) = options.resolved_range(periodogram);
         return Err(SpectrumFitError::TooFewBlocks {
             f_min_hz,
             f_max_hz,
             n_blocks: blocks.len(),
-            n_params,
+            n_params: options.model.n_params(),
         });
     }
     fit_blocks(periodogram, options, blocks, theta)
