@@ -156,3 +156,86 @@ fn drive_too_weak(e: &DriveEvidence<'_>) -> Option<Finding> {
         ),
     ))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn evidence(ratio: Estimate, stiffness: Estimate) -> DriveEvidence<'static> {
+        DriveEvidence {
+            axis: "x",
+            orientation: AxisOrientation::Lateral,
+            drag_ratio: ratio,
+            drag_over_bulk: ratio.value,
+            radius_m: 0.5e-6,
+            viscosity_pa_s: 0.89e-3,
+            height_m: None,
+            stiffness,
+            target_relative_precision: 0.05,
+            spike_noise_relative_variance: 0.0,
+            amplitude_relative_variance: 0.0,
+            amplitude_m: 100e-9,
+            record_length_s: 2.0,
+        }
+    }
+
+    #[test]
+    fn the_height_found_gives_back_the_wall_factor_it_was_found_for() {
+        // Round trip through Faxen's lateral law and Brenner's axial series (drag module).
+        for orientation in [AxisOrientation::Lateral, AxisOrientation::Axial] {
+            for h_over_r in [1.6, 2.0, 3.0, 6.0, 20.0] {
+                let r = 0.5e-6;
+                let factor = drag::wall_factor(orientation, r, Some(h_over_r * r)).expect("factor");
+                let h = height_for(orientation, r, factor).expect("a height");
+                assert!(
+                    (h / (h_over_r * r) - 1.0).abs() < 1e-8,
+                    "{orientation:?} {h_over_r}"
+                );
+            }
+        }
+        // No height makes the drag smaller than in bulk.
+        assert_eq!(height_for(AxisOrientation::Lateral, 0.5e-6, 0.99), None);
+    }
+
+    #[test]
+    fn a_drag_ratio_three_standard_errors_from_one_is_a_mismatch_that_names_its_causes() {
+        let k = Estimate::new(0.05, 0.001);
+        assert!(drive(&evidence(Estimate::new(1.05, 0.02), k)).is_empty());
+        let found = drive(&evidence(Estimate::new(1.23, 0.02), k));
+        assert_eq!(found.len(), 1);
+        let m = &found[0].message;
+        assert_eq!(found[0].code, "drag-mismatch");
+        // Faxen's factor is 1.23 near h = 1.5 um for a 1 um bead.
+        assert!(m.contains("centre 1.5") || m.contains("centre 1.4"), "{m}");
+        assert!(m.contains("viscosity of 1.095 mPa s"), "{m}");
+        assert!(m.contains("diameter of 1.230 um"), "{m}");
+        // A drag below the expected one has no height, only viscosity and diameter.
+        let low = drive(&evidence(Estimate::new(0.8, 0.02), k));
+        assert!(!low[0].message.contains("surface"), "{}", low[0].message);
+    }
+
+    #[test]
+    fn a_weak_drive_names_the_amplitude_that_reaches_the_precision() {
+        // Relative variance 0.08^2 of which 0.07^2 from the spike: the spike's share falls as
+        // 1 / A^2, so A' = A sqrt(0.07^2 / (0.05^2 - (0.08^2 - 0.07^2))) reaches 5 %.
+        let mut e = evidence(Estimate::new(1.0, 0.02), Estimate::new(0.05, 0.004));
+        e.spike_noise_relative_variance = 0.07f64.powi(2);
+        let found = drive(&e);
+        assert_eq!(found.len(), 1);
+        assert_eq!(found[0].code, "drive-too-weak");
+        let expected = 100.0 * (0.0049f64 / (0.0025 - (0.0064 - 0.0049))).sqrt();
+        assert!(
+            found[0].message.contains(&format!("{expected:.0} nm")),
+            "{} (expected {expected:.0} nm)",
+            found[0].message
+        );
+        // Precise enough: no finding.
+        assert!(
+            drive(&evidence(
+                Estimate::new(1.0, 0.02),
+                Estimate::new(0.05, 0.002)
+            ))
+            .is_empty()
+        );
+    }
+}

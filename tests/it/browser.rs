@@ -568,6 +568,30 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
                 what("beta")
             );
         }
+        // An active calibration shows its measured drag, the drag ratio and its stiffness.
+        if axis["active"].is_object() {
+            let a = &axis["active"];
+            check_number(
+                &what("drive drag"),
+                &q["drive-drag"],
+                &a["drag_pn_s_per_nm"],
+                1.0,
+            );
+            check_number(
+                &what("drag ratio"),
+                &q["drive-drag-ratio"],
+                &a["drag_ratio"],
+                1.0,
+            );
+            check_number(
+                &what("drive stiffness"),
+                &q["drive-stiffness"],
+                &a["stiffness_pn_per_nm"],
+                1.0,
+            );
+        } else {
+            assert!(q["drive-drag"].is_null(), "{}", what("drive shown"));
+        }
         assert_eq!(s["verdict"], axis["verdict"], "{}", what("verdict"));
         let words = s["verdict_text"].as_str().unwrap_or("");
         let expected_word = if axis["verdict"] == "consistent" {
@@ -995,7 +1019,9 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     browser.screenshot("result-csv", false).await;
     browser.screenshot("result-csv-full", true).await;
 
-    // 2. Volt data with three channels, picked with the file chooser: beta is shown.
+    // 2. A driven recording (the stage drive's fields under "more settings"): the active
+    // calibration's numbers are shown as the API gives them.
+    let driven = demo(dir.path(), "driven.csv");
     browser.goto(&server.url("/#/")).await;
     browser
         .wait_for(
@@ -1004,6 +1030,41 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
         )
         .await;
     browser.open_more_settings().await;
+    for (k, v) in driven.fields() {
+        browser.set_field(&k, &v).await;
+    }
+    browser.set_field("trap", "t3").await;
+    browser.pick_file(&driven.path).await;
+    browser.submit().await;
+    browser
+        .wait_for(
+            "the driven result",
+            &RESULT_ID.replace("return m &&", &format!("return m && m[1] !== '{id}' &&")),
+        )
+        .await;
+    let id_driven = browser.wait_for("the driven result", RESULT_ID).await;
+    let id_driven = id_driven.as_str().unwrap_or("").to_string();
+    let doc = api_json(&server, &format!("/api/v1/calibrations/{id_driven}")).await;
+    let plots = api_json(&server, &format!("/api/v1/calibrations/{id_driven}/plots")).await;
+    assert!(doc["result"]["axes"][0]["active"].is_object(), "{doc}");
+    let shown = browser.js(READ_RESULT, vec![]).await;
+    check_result_view(&shown, &doc, &plots);
+    browser.screenshot("result-driven", true).await;
+    let id = id_driven;
+
+    // 3. Volt data with three channels, picked with the file chooser: beta is shown.
+    browser.goto(&server.url("/#/")).await;
+    browser
+        .wait_for(
+            "the upload view",
+            "return !document.getElementById('view-upload').hidden;",
+        )
+        .await;
+    browser.open_more_settings().await;
+    // The drive's fields are cleared so this upload is passive.
+    for k in ["drive_frequency_hz", "drive_amplitude_nm"] {
+        browser.set_field(k, "").await;
+    }
     for (k, v) in volts.fields() {
         browser.set_field(&k, &v).await;
     }
@@ -1036,7 +1097,7 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     browser.screenshot("result-volts-tablet", false).await;
     browser.viewport(LAPTOP).await;
 
-    // 3. The fields remember their last values across a reload.
+    // 4. The fields remember their last values across a reload.
     browser.goto(&server.url("/#/")).await;
     browser.client.refresh().await.expect("reload");
     browser.wait_settings().await;
