@@ -22,7 +22,7 @@
 //! With these weights Var(theta) reproduces F^-1 and Var(s^2) the Bartlett formula, which the
 //! tests check.
 
-use crate::spectrum::{FilterSetting, Params, SpectrumModel};
+use crate::spectrum::{FilterSetting, ImageTable, Params, SpectrumModel};
 use std::f64::consts::PI;
 
 /// Everything the covariance integrals need, in plain numbers.
@@ -65,7 +65,7 @@ pub(crate) fn log_covariance(inp: &InfluenceInputs<'_>) -> [[f64; 4]; 4] {
     // at least 16 points per period, and the Lorentzian with at least 4096 points.
     let n_grid = (16 * max_lag).clamp(4096, 1 << 20);
     let df = nyquist / n_grid as f64;
-    let spectrum = SpectrumAndGradient::new(inp.model, inp.theta);
+    let mut spectrum = SpectrumAndGradient::new(inp.model, inp.theta);
     let mut lag_cosines = LagCosines::new(inp.tau_influence, n_grid);
     let mut dlns = vec![0.0; inp.theta.len()];
     let mut acc = [[0.0f64; 4]; 4];
@@ -223,13 +223,20 @@ enum SpectrumAndGradient<'a> {
         /// 2 a c.
         two_a_c: f64,
     },
-    /// Any other model: S from `psd_params`, d ln S / d theta by central differences with the
-    /// parameters of theta and of theta +- h e_j decoded once.
+    /// Any other model: S from `psd_params` (from the frequency's image table when the model
+    /// tables its alias images, see `SpectrumModel::image_table`); d ln S / d theta exactly for
+    /// the parameters S is linear in (S - P_n scales with D: d ln S / d ln D = (S - P_n) / S,
+    /// and d ln S / d ln P_n = P_n / S), by central differences with the parameters of theta
+    /// and of theta +- h e_j decoded once for the others.
     Numerical {
         model: &'a SpectrumModel,
         centre: Params,
         /// (theta + h e_j, theta - h e_j) decoded, for each parameter j.
         steps: Vec<(Params, Params)>,
+        /// Index of ln P_n in theta, when the model has the floor.
+        floor_index: Option<usize>,
+        /// The image table of the frequency last evaluated (reused storage).
+        table: ImageTable,
     },
 }
 
@@ -270,26 +277,39 @@ impl<'a> SpectrumAndGradient<'a> {
             model,
             centre: model.decode(theta),
             steps,
+            floor_index: model.noise_floor_index(),
+            table: ImageTable::default(),
         }
     }
 
     /// S(f), signal-units^2/Hz.
-    fn value(&self, f_hz: f64) -> f64 {
+    fn value(&mut self, f_hz: f64) -> f64 {
         match self {
-            SpectrumAndGradient::ClosedForm {
+            &mut SpectrumAndGradient::ClosedForm {
                 dt, c, numerator, ..
             } => {
                 let cos = (2.0 * PI * f_hz * dt).cos();
-                numerator / (2.0 * c).mul_add(-cos, c.mul_add(*c, 1.0))
+                numerator / (2.0 * c).mul_add(-cos, c.mul_add(c, 1.0))
             }
-            SpectrumAndGradient::Numerical { model, centre, .. } => model.psd_params(f_hz, centre),
+            SpectrumAndGradient::Numerical {
+                model,
+                centre,
+                table,
+                ..
+            } => {
+                if model.fill_image_table(f_hz, table) {
+                    model.signal_psd_tabled(table, centre) + centre.noise_floor
+                } else {
+                    model.psd_params(f_hz, centre)
+                }
+            }
         }
     }
 
     /// S(f), and d ln S / d theta written into `dlns` (one slot per parameter).
-    fn value_and_log_gradient(&self, f_hz: f64, dlns: &mut [f64]) -> f64 {
+    fn value_and_log_gradient(&mut self, f_hz: f64, dlns: &mut [f64]) -> f64 {
         match self {
-            SpectrumAndGradient::ClosedForm {
+            &mut SpectrumAndGradient::ClosedForm {
                 dt,
                 c,
                 numerator,
@@ -297,7 +317,7 @@ impl<'a> SpectrumAndGradient<'a> {
                 two_a_c,
             } => {
                 let cos = (2.0 * PI * f_hz * dt).cos();
-                let den = (2.0 * c).mul_add(-cos, c.mul_add(*c, 1.0));
+                let den = (2.0 * c).mul_add(-cos, c.mul_add(c, 1.0));
                 dlns[0] = (two_a_c * (c - cos) / den) + dlns_dlnfc_constant;
                 dlns[1] = 1.0;
                 numerator / den
@@ -306,13 +326,28 @@ impl<'a> SpectrumAndGradient<'a> {
                 model,
                 centre,
                 steps,
+                floor_index,
+                table,
             } => {
-                for (d, (up, down)) in dlns.iter_mut().zip(steps) {
-                    let up = model.psd_params(f_hz, up).ln();
-                    let down = model.psd_params(f_hz, down).ln();
-                    *d = (up - down) / (2.0 * DERIVATIVE_STEP);
+                let tabled = model.fill_image_table(f_hz, table);
+                let psd = |p: &Params| {
+                    if tabled {
+                        model.signal_psd_tabled(table, p) + p.noise_floor
+                    } else {
+                        model.psd_params(f_hz, p)
+                    }
+                };
+                let s = psd(centre);
+                for (j, (d, (up, down))) in dlns.iter_mut().zip(steps.iter()).enumerate() {
+                    *d = if j == 1 {
+                        (s - centre.noise_floor) / s
+                    } else if Some(j) == *floor_index {
+                        centre.noise_floor / s
+                    } else {
+                        (psd(up).ln() - psd(down).ln()) / (2.0 * DERIVATIVE_STEP)
+                    };
                 }
-                model.psd_params(f_hz, centre)
+                s
             }
         }
     }

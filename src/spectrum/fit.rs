@@ -1,7 +1,7 @@
 //! Maximum-likelihood fit of a spectrum model to a blocked periodogram, and the analytic
 //! weighted least-squares fit of a plain Lorentzian used for starting values.
 
-use super::model::{FilterSetting, Params, Segments, SpectrumModel};
+use super::model::{FilterSetting, Params, PreparedBlock, Segments, SpectrumModel};
 use super::{Block, Periodogram, block_periodogram};
 use crate::linalg::{invert_spd, solve_spd};
 use argmin::core::{CostFunction, Executor};
@@ -251,6 +251,9 @@ struct Whittle<'a> {
     segment_len: Option<Segments>,
     /// The additive 1/f term, when it is fitted.
     flicker: Option<FlickerColumn>,
+    /// The blocks' quadrature nodes with what the model computes at them independently of
+    /// theta (`SpectrumModel::prepare_block`), built once per fit.
+    prepared: Vec<PreparedBlock>,
 }
 
 /// The 1/f term's place in theta and its shape over the blocks. Its parameter is linear (not
@@ -295,14 +298,30 @@ impl FlickerColumn {
     }
 }
 
-impl Whittle<'_> {
-    fn model_means(&self, p: &Params) -> Vec<f64> {
-        self.blocks
+impl<'a> Whittle<'a> {
+    fn new(
+        model: &'a SpectrumModel,
+        blocks: &'a [Block],
+        segment_len: Option<Segments>,
+        flicker: Option<FlickerColumn>,
+    ) -> Self {
+        let prepared = blocks
             .iter()
-            .map(|b| {
-                self.model
-                    .block_mean(b.lower_hz, b.upper_hz, p, self.segment_len)
-            })
+            .map(|b| model.prepare_block(b.lower_hz, b.upper_hz, segment_len))
+            .collect();
+        Whittle {
+            model,
+            blocks,
+            segment_len,
+            flicker,
+            prepared,
+        }
+    }
+
+    fn model_means(&self, p: &Params) -> Vec<f64> {
+        self.prepared
+            .iter()
+            .map(|b| self.model.prepared_block_mean(b, p, self.segment_len))
             .collect()
     }
 
@@ -329,13 +348,40 @@ impl Whittle<'_> {
         total
     }
 
-    /// d ln S_b / d theta by central differences (step 1e-5 in log space), for every block.
-    fn log_derivatives(&self, theta: &[f64]) -> Vec<Vec<f64>> {
+    /// d ln S_b / d theta for every block, given the means S_b at theta. The parameters the
+    /// means are linear in are differentiated exactly: D scales everything but the white floor
+    /// and the 1/f term (d S_b / d ln D = S_b - P_n floor_gain_b - A / f_b), P_n enters as
+    /// P_n floor_gain_b and the 1/f term's parameter as scale / f_b. The others (ln fc and a
+    /// fitted filter's) by central differences, step 1e-5 in log space (truncation and
+    /// rounding both near 1e-10 relative).
+    fn log_derivatives(&self, theta: &[f64], means: &[f64]) -> Vec<Vec<f64>> {
         let h = 1e-5;
         let n = theta.len();
+        let floor_index = self.model.noise_floor_index();
+        let floor_level = floor_index
+            .and_then(|i| theta.get(i))
+            .map_or(0.0, |v| v.exp());
+        let flicker = self
+            .flicker
+            .as_ref()
+            .map(|column| (column, column.density_at_1_hz(theta)));
         let mut out = vec![vec![0.0; n]; self.blocks.len()];
+        for (b, row) in out.iter_mut().enumerate() {
+            let floor = floor_level * self.prepared[b].floor_gain;
+            let drift = flicker.map_or(0.0, |(column, a)| a * column.inverse_f[b]);
+            row[1] = (means[b] - floor - drift) / means[b];
+            if let Some(i) = floor_index {
+                row[i] = floor / means[b];
+            }
+            if let Some((column, _)) = flicker {
+                row[column.index] = column.scale * column.inverse_f[b] / means[b];
+            }
+        }
         let mut t = theta.to_vec();
-        for i in 0..n {
+        let linear = |i: usize| {
+            i == 1 || Some(i) == floor_index || flicker.is_some_and(|(c, _)| c.index == i)
+        };
+        for i in (0..n).filter(|&i| !linear(i)) {
             t[i] = theta[i] + h;
             let up = self.means_at(&t);
             t[i] = theta[i] - h;
@@ -363,7 +409,7 @@ impl CostFunction for Whittle<'_> {
 fn fisher_and_score(w: &Whittle<'_>, theta: &[f64]) -> (Vec<Vec<f64>>, Vec<f64>) {
     let n = theta.len();
     let means = w.means_at(theta);
-    let derivs = w.log_derivatives(theta);
+    let derivs = w.log_derivatives(theta, &means);
     let mut fisher = vec![vec![0.0; n]; n];
     let mut score = vec![0.0; n];
     for ((b, s), d) in w.blocks.iter().zip(&means).zip(&derivs) {
@@ -467,15 +513,15 @@ fn fit_blocks(
     let model = &options.model;
     let n_model_params = model.n_params();
     let n_params = n_model_params + usize::from(options.flicker);
-    let whittle = Whittle {
+    let whittle = Whittle::new(
         model,
-        blocks: &blocks,
-        segment_len: Some(segments_of(periodogram)),
-        flicker: options
+        &blocks,
+        Some(segments_of(periodogram)),
+        options
             .flicker
             .then(|| FlickerColumn::new(n_model_params, &blocks))
             .flatten(),
-    };
+    );
     if whittle.flicker.is_some() {
         theta.push(0.0);
     }
@@ -583,18 +629,8 @@ pub fn likelihood_gain(
     let segments = Some(segments_of(periodogram));
     // Both models are compared without a 1/f drift term: when the fit kept one, its own model
     // is refitted without it first, so the two costs are of like models.
-    let own = Whittle {
-        model: &fit.model,
-        blocks: &fit.blocks,
-        segment_len: segments,
-        flicker: None,
-    };
-    let other = Whittle {
-        model: alternative,
-        blocks: &fit.blocks,
-        segment_len: segments,
-        flicker: None,
-    };
+    let own = Whittle::new(&fit.model, &fit.blocks, segments, None);
+    let other = Whittle::new(alternative, &fit.blocks, segments, None);
     let own_theta = if fit.flicker.is_some() {
         fisher_scoring(&own, fit.theta.clone(), 200).0
     } else {
@@ -662,6 +698,7 @@ fn nelder_mead(w: &Whittle<'_>, theta: &[f64]) -> Option<Vec<f64>> {
         blocks: w.blocks,
         segment_len: w.segment_len,
         flicker: w.flicker.clone(),
+        prepared: w.prepared.clone(),
     };
     let result = Executor::new(problem, solver)
         .configure(|state| state.max_iters(2000))

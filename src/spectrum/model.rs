@@ -86,11 +86,49 @@ pub fn aliased_lorentzian_one_sided(
     diffusion: f64,
     sample_rate_hz: f64,
 ) -> f64 {
+    let cos_theta = (2.0 * PI * f_hz * (1.0 / sample_rate_hz)).cos();
+    aliased_lorentzian_from_cos(cos_theta, corner_frequency_hz, diffusion, sample_rate_hz)
+}
+
+/// [`aliased_lorentzian_one_sided`] from cos(2 pi f dt), for callers that keep it per frequency.
+fn aliased_lorentzian_from_cos(
+    cos_theta: f64,
+    corner_frequency_hz: f64,
+    diffusion: f64,
+    sample_rate_hz: f64,
+) -> f64 {
     let dt = 1.0 / sample_rate_hz;
     let c = (-2.0 * PI * corner_frequency_hz * dt).exp();
     let variance = diffusion / (2.0 * PI * corner_frequency_hz);
-    let denom = (2.0 * c).mul_add(-(2.0 * PI * f_hz * dt).cos(), c.mul_add(c, 1.0));
+    let denom = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
     2.0 * variance * dt * c.mul_add(-c, 1.0) / denom
+}
+
+/// One alias image f_n = f + n fs of a frequency, as the numerical image sum sees it, with
+/// s = sqrt(|f_n| / f_nu) (0 without drag), g the fixed filter's gain and sinc^2 the camera's
+/// box-car gain at f_n (1 without them).
+#[derive(Clone, Copy, Debug)]
+struct AliasImage {
+    /// |f_n| s + f_n^2 / f_m, Hz.
+    shift: f64,
+    /// (|f_n| (1 + s))^2, Hz^2.
+    damping_squared: f64,
+    /// (1 + s) g sinc^2.
+    weight: f64,
+    /// f_n^2, Hz^2.
+    f_squared: f64,
+    /// sinc^2(pi f_n W).
+    box_gain: f64,
+}
+
+/// The alias images of one frequency for the numerical image sum (see
+/// `SpectrumModel::image_table`).
+#[derive(Clone, Debug, Default)]
+pub(crate) struct ImageTable {
+    f_hz: f64,
+    /// cos(2 pi f dt), for the closed-form aliased Lorentzian.
+    cos_theta: f64,
+    images: Vec<AliasImage>,
 }
 
 /// Plain one-sided Lorentzian D / (pi^2 (fc^2 + f^2)).
@@ -323,6 +361,94 @@ impl SpectrumModel {
 
     /// The bead's part of `psd_params`, without the white noise floor.
     fn signal_psd(&self, f_hz: f64, p: &Params) -> f64 {
+        self.signal_psd_direct(f_hz, p)
+    }
+
+    /// Whether the numerical image sum of `signal_psd` can be tabled: aliasing on, drag
+    /// modelled (without it the closed form applies, except for a fixed filter whose f3dB
+    /// nearly meets fc), and a filter, if any, fixed (a fitted one changes each image's gain
+    /// with theta).
+    pub(crate) fn tables_images(&self) -> bool {
+        self.aliasing && self.hydro.is_some() && !matches!(self.filter, FilterSetting::Fitted(_))
+    }
+
+    /// The alias images of `f_hz` with what `signal_psd` computes of them that does not depend
+    /// on the parameters, or `None` when the model does not sum images it can table (see
+    /// [`Self::tables_images`]). A fit evaluates the model at the same frequencies for every
+    /// theta it tries, so it builds the tables once (`spectrum::fit`).
+    pub(crate) fn image_table(&self, f_hz: f64) -> Option<ImageTable> {
+        let mut table = ImageTable::default();
+        self.fill_image_table(f_hz, &mut table).then_some(table)
+    }
+
+    /// [`Self::image_table`] written into `table`, reusing its storage; false (and `table`
+    /// unchanged) when the model does not table its images.
+    pub(crate) fn fill_image_table(&self, f_hz: f64, table: &mut ImageTable) -> bool {
+        if !self.tables_images() {
+            return false;
+        }
+        let (f_nu, f_m) = self
+            .hydro
+            .map_or((f64::INFINITY, f64::INFINITY), |h| (h.f_nu_hz, h.f_m_hz));
+        let fs = self.sample_rate_hz;
+        let dt = 1.0 / fs;
+        table.f_hz = f_hz;
+        table.cos_theta = (2.0 * PI * f_hz * dt).cos();
+        table.images.clear();
+        table.images.extend((-ALIAS_TERMS..=ALIAS_TERMS).map(|n| {
+            let f_signed = f64::from(n).mul_add(fs, f_hz);
+            let f = f_signed.abs();
+            let box_gain = self
+                .exposure_s
+                .map_or(1.0, |w| sinc_squared(PI * f_signed * w));
+            let gain = match self.filter {
+                FilterSetting::Fixed(filter) => filter.gain(f),
+                _ => 1.0,
+            };
+            let s = (f / f_nu).sqrt();
+            let damping = f.mul_add(s, f);
+            AliasImage {
+                shift: f.mul_add(s, f * f / f_m),
+                damping_squared: damping * damping,
+                weight: (1.0 + s) * gain * box_gain,
+                f_squared: f * f,
+                box_gain,
+            }
+        }));
+        true
+    }
+
+    /// `signal_psd` at a tabled frequency: the same sum as [`Self::signal_psd_direct`], with
+    /// each image's hydrodynamic term written as (D / pi^2) w / ((fc - f s - f^2/f_m)^2 +
+    /// f^2 (1 + s)^2), w = (1 + s) g sinc^2, and D / pi^2 taken out of the sums; equal to it up
+    /// to rounding (the tests compare the two).
+    pub(crate) fn signal_psd_tabled(&self, table: &ImageTable, p: &Params) -> f64 {
+        let fc = p.fc;
+        let fc_squared = fc * fc;
+        let (mut drag_sum, mut lorentz_sum) = (0.0, 0.0);
+        // Plain products and sums, not mul_add: without FMA among the compile-time target
+        // features each mul_add is a library call, and this loop is most of a fit with drag.
+        #[allow(clippy::suboptimal_flops)]
+        for image in &table.images {
+            let re = fc - image.shift;
+            drag_sum += image.weight / (re * re + image.damping_squared);
+            lorentz_sum += image.box_gain / (fc_squared + image.f_squared);
+        }
+        let scale = p.d / (PI * PI);
+        let fs = self.sample_rate_hz;
+        let closed = match self.exposure_s {
+            Some(w) => blurred_component_one_sided(table.f_hz, fc, p.d / (2.0 * PI * fc), fs, w),
+            None => aliased_lorentzian_from_cos(table.cos_theta, fc, p.d, fs),
+        };
+        let cutoff = (f64::from(ALIAS_TERMS) + 0.5) * fs;
+        let ratio = self.unaliased(cutoff, p) / lorentzian(cutoff, fc, p.d);
+        (closed - scale * lorentz_sum)
+            .max(0.0)
+            .mul_add(ratio, scale * drag_sum)
+    }
+
+    /// The numerical image sum of `signal_psd` evaluated term by term (or the closed form).
+    fn signal_psd_direct(&self, f_hz: f64, p: &Params) -> f64 {
         if !self.aliasing {
             let box_gain = self.exposure_s.map_or(1.0, |w| sinc_squared(PI * f_hz * w));
             return self.unaliased(f_hz, p) * box_gain;
@@ -483,12 +609,93 @@ impl SpectrumModel {
         p: &Params,
         segments: Option<Segments>,
     ) -> f64 {
-        let mid = 0.5 * (lower_hz + upper_hz);
-        let half = 0.5 * (upper_hz - lower_hz);
-        let node = half * (3.0f64 / 5.0).sqrt();
-        let w_outer = 5.0 / 18.0;
-        let w_mid = 8.0 / 18.0;
-        let at = |f| self.expected_periodogram(f, p, segments);
-        w_outer * (at(mid - node) + at(mid + node)) + w_mid * at(mid)
+        let nodes = block_nodes(lower_hz, upper_hz);
+        block_average(|i| self.expected_periodogram(nodes[i], p, segments))
     }
+
+    /// A block's quadrature nodes with what the model computes at them that does not depend on
+    /// the parameters: the image tables (see [`Self::image_table`]) and the block mean of
+    /// dS/dP_n, the white floor's own gain (1, plus the differenced segments' finite-record term
+    /// of `leakage_params`), so that a fit pays for them once.
+    pub(crate) fn prepare_block(
+        &self,
+        lower_hz: f64,
+        upper_hz: f64,
+        segments: Option<Segments>,
+    ) -> PreparedBlock {
+        let nodes = block_nodes(lower_hz, upper_hz);
+        let tables = self
+            .tables_images()
+            .then(|| nodes.map(|f| self.image_table(f)).map(Option::unwrap));
+        let dt = 1.0 / self.sample_rate_hz;
+        let floor_gain = block_average(|i| {
+            let f_hz = nodes[i];
+            match segments {
+                Some(seg) if self.aliasing && f_hz >= seg.differenced_from_hz => {
+                    let cos_theta = (2.0 * PI * f_hz * dt).cos();
+                    let gain = 2.0 * (1.0 - cos_theta);
+                    if gain > 0.0 {
+                        1.0 + 2.0 * cos_theta / (seg.len as f64 * gain)
+                    } else {
+                        1.0
+                    }
+                }
+                _ => 1.0,
+            }
+        });
+        PreparedBlock {
+            nodes,
+            tables,
+            floor_gain,
+        }
+    }
+
+    /// [`Self::block_mean`] of a prepared block: the same quadrature, with the image sums
+    /// evaluated from their tables.
+    pub(crate) fn prepared_block_mean(
+        &self,
+        block: &PreparedBlock,
+        p: &Params,
+        segments: Option<Segments>,
+    ) -> f64 {
+        let Some(tables) = &block.tables else {
+            return block_average(|i| self.expected_periodogram(block.nodes[i], p, segments));
+        };
+        block_average(|i| {
+            let f_hz = block.nodes[i];
+            let s = self.signal_psd_tabled(&tables[i], p) + p.noise_floor;
+            match segments {
+                Some(seg) if self.aliasing => {
+                    s + self.leakage_params(f_hz, p, seg.len, f_hz >= seg.differenced_from_hz)
+                }
+                _ => s,
+            }
+        })
+    }
+}
+
+/// A block of a fit prepared for repeated evaluation (see `SpectrumModel::prepare_block`).
+#[derive(Clone, Debug)]
+pub(crate) struct PreparedBlock {
+    nodes: [f64; 3],
+    tables: Option<[ImageTable; 3]>,
+    /// Block mean of dS/dP_n (dimensionless): the expected block mean is linear in the white
+    /// floor's level with this slope.
+    pub(crate) floor_gain: f64,
+}
+
+/// The three Gauss-Legendre nodes on [lower, upper], in the order `block_average` weighs them.
+fn block_nodes(lower_hz: f64, upper_hz: f64) -> [f64; 3] {
+    let mid = 0.5 * (lower_hz + upper_hz);
+    let half = 0.5 * (upper_hz - lower_hz);
+    let node = half * (3.0f64 / 5.0).sqrt();
+    [mid - node, mid + node, mid]
+}
+
+/// The 3-point Gauss-Legendre mean (exact for cubics) of the values `at(i)` at the nodes of
+/// [`block_nodes`].
+fn block_average(at: impl Fn(usize) -> f64) -> f64 {
+    let w_outer = 5.0 / 18.0;
+    let w_mid = 8.0 / 18.0;
+    w_outer * (at(0) + at(1)) + w_mid * at(2)
 }
