@@ -23,6 +23,7 @@
 //! tests check.
 
 use crate::spectrum::{FilterSetting, ImageTable, Params, SpectrumModel};
+use std::cell::RefCell;
 use std::f64::consts::PI;
 
 /// Everything the covariance integrals need, in plain numbers.
@@ -65,7 +66,7 @@ pub(crate) fn log_covariance(inp: &InfluenceInputs<'_>) -> [[f64; 4]; 4] {
     // at least 16 points per period, and the Lorentzian with at least 4096 points.
     let n_grid = (16 * max_lag).clamp(4096, 1 << 20);
     let df = nyquist / n_grid as f64;
-    let mut spectrum = SpectrumAndGradient::new(inp.model, inp.theta);
+    let spectrum = SpectrumAndGradient::new(inp.model, inp.theta);
     let mut lag_cosines = LagCosines::new(inp.tau_influence, n_grid);
     let mut dlns = vec![0.0; inp.theta.len()];
     let mut acc = [[0.0f64; 4]; 4];
@@ -236,7 +237,7 @@ enum SpectrumAndGradient<'a> {
         /// Index of ln P_n in theta, when the model has the floor.
         floor_index: Option<usize>,
         /// The image table of the frequency last evaluated (reused storage).
-        table: ImageTable,
+        table: RefCell<ImageTable>,
     },
 }
 
@@ -278,14 +279,14 @@ impl<'a> SpectrumAndGradient<'a> {
             centre: model.decode(theta),
             steps,
             floor_index: model.noise_floor_index(),
-            table: ImageTable::default(),
+            table: RefCell::new(ImageTable::default()),
         }
     }
 
     /// S(f), signal-units^2/Hz.
-    fn value(&mut self, f_hz: f64) -> f64 {
+    fn value(&self, f_hz: f64) -> f64 {
         match self {
-            &mut SpectrumAndGradient::ClosedForm {
+            &SpectrumAndGradient::ClosedForm {
                 dt, c, numerator, ..
             } => {
                 let cos = (2.0 * PI * f_hz * dt).cos();
@@ -297,8 +298,9 @@ impl<'a> SpectrumAndGradient<'a> {
                 table,
                 ..
             } => {
-                if model.fill_image_table(f_hz, table) {
-                    model.signal_psd_tabled(table, centre) + centre.noise_floor
+                let mut table = table.borrow_mut();
+                if model.fill_image_table(f_hz, &mut table) {
+                    model.signal_psd_tabled(&table, centre) + centre.noise_floor
                 } else {
                     model.psd_params(f_hz, centre)
                 }
@@ -307,9 +309,9 @@ impl<'a> SpectrumAndGradient<'a> {
     }
 
     /// S(f), and d ln S / d theta written into `dlns` (one slot per parameter).
-    fn value_and_log_gradient(&mut self, f_hz: f64, dlns: &mut [f64]) -> f64 {
+    fn value_and_log_gradient(&self, f_hz: f64, dlns: &mut [f64]) -> f64 {
         match self {
-            &mut SpectrumAndGradient::ClosedForm {
+            &SpectrumAndGradient::ClosedForm {
                 dt,
                 c,
                 numerator,
@@ -329,10 +331,11 @@ impl<'a> SpectrumAndGradient<'a> {
                 floor_index,
                 table,
             } => {
-                let tabled = model.fill_image_table(f_hz, table);
+                let mut table = table.borrow_mut();
+                let tabled = model.fill_image_table(f_hz, &mut table);
                 let psd = |p: &Params| {
                     if tabled {
-                        model.signal_psd_tabled(table, p) + p.noise_floor
+                        model.signal_psd_tabled(&table, p) + p.noise_floor
                     } else {
                         model.psd_params(f_hz, p)
                     }
