@@ -224,18 +224,15 @@ enum SpectrumAndGradient<'a> {
         /// 2 a c.
         two_a_c: f64,
     },
-    /// Any other model: S from `psd_params` (from the frequency's image table when the model
-    /// tables its alias images, see `SpectrumModel::image_table`); d ln S / d theta exactly for
-    /// the parameters S is linear in (S - P_n scales with D: d ln S / d ln D = (S - P_n) / S,
-    /// and d ln S / d ln P_n = P_n / S), by central differences with the parameters of theta
-    /// and of theta +- h e_j decoded once for the others.
+    /// Any other model: S from `psd_params` (from the frequency's image table, built once for
+    /// the 1 + 2 n evaluations, when the model tables its alias images: see
+    /// `SpectrumModel::image_table`), d ln S / d theta by central differences with the
+    /// parameters of theta and of theta +- h e_j decoded once.
     Numerical {
         model: &'a SpectrumModel,
         centre: Params,
         /// (theta + h e_j, theta - h e_j) decoded, for each parameter j.
         steps: Vec<(Params, Params)>,
-        /// Index of ln P_n in theta, when the model has the floor.
-        floor_index: Option<usize>,
         /// The image table of the frequency last evaluated (reused storage).
         table: RefCell<ImageTable>,
     },
@@ -278,7 +275,6 @@ impl<'a> SpectrumAndGradient<'a> {
             model,
             centre: model.decode(theta),
             steps,
-            floor_index: model.noise_floor_index(),
             table: RefCell::new(ImageTable::default()),
         }
     }
@@ -328,7 +324,6 @@ impl<'a> SpectrumAndGradient<'a> {
                 model,
                 centre,
                 steps,
-                floor_index,
                 table,
             } => {
                 let mut table = table.borrow_mut();
@@ -340,17 +335,10 @@ impl<'a> SpectrumAndGradient<'a> {
                         model.psd_params(f_hz, p)
                     }
                 };
-                let s = psd(centre);
-                for (j, (d, (up, down))) in dlns.iter_mut().zip(steps.iter()).enumerate() {
-                    *d = if j == 1 {
-                        (s - centre.noise_floor) / s
-                    } else if Some(j) == *floor_index {
-                        centre.noise_floor / s
-                    } else {
-                        (psd(up).ln() - psd(down).ln()) / (2.0 * DERIVATIVE_STEP)
-                    };
+                for (d, (up, down)) in dlns.iter_mut().zip(steps) {
+                    *d = (psd(up).ln() - psd(down).ln()) / (2.0 * DERIVATIVE_STEP);
                 }
-                s
+                psd(centre)
             }
         }
     }

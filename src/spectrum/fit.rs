@@ -338,8 +338,13 @@ impl<'a> Whittle<'a> {
     }
 
     fn cost_at(&self, theta: &[f64]) -> f64 {
+        self.cost_of(&self.means_at(theta))
+    }
+
+    /// The Whittle cost of the block means `means` (infinite when one is not positive).
+    fn cost_of(&self, means: &[f64]) -> f64 {
         let mut total = 0.0;
-        for (b, s) in self.blocks.iter().zip(self.means_at(theta)) {
+        for (b, &s) in self.blocks.iter().zip(means) {
             if !(s.is_finite() && s > 0.0) {
                 return f64::INFINITY;
             }
@@ -405,14 +410,13 @@ impl CostFunction for Whittle<'_> {
 }
 
 /// Fisher information F = sum_b n_b (d ln S_b)(d ln S_b)^T and score g = sum_b n_b (P_b/S_b - 1)
-/// d ln S_b (the gradient of minus L).
-fn fisher_and_score(w: &Whittle<'_>, theta: &[f64]) -> (Vec<Vec<f64>>, Vec<f64>) {
+/// d ln S_b (the gradient of minus L), given the block means S_b at theta.
+fn fisher_and_score(w: &Whittle<'_>, theta: &[f64], means: &[f64]) -> (Vec<Vec<f64>>, Vec<f64>) {
     let n = theta.len();
-    let means = w.means_at(theta);
-    let derivs = w.log_derivatives(theta, &means);
+    let derivs = w.log_derivatives(theta, means);
     let mut fisher = vec![vec![0.0; n]; n];
     let mut score = vec![0.0; n];
-    for ((b, s), d) in w.blocks.iter().zip(&means).zip(&derivs) {
+    for ((b, s), d) in w.blocks.iter().zip(means).zip(&derivs) {
         let nb = b.n_averaged as f64;
         let r = b.psd / s - 1.0;
         for i in 0..n {
@@ -538,12 +542,12 @@ fn fit_blocks(
         iterations += extra;
     }
     let mut theta = theta_opt;
-    let (fisher, _) = fisher_and_score(&whittle, &theta);
+    let model_psd = whittle.means_at(&theta);
+    let (fisher, _) = fisher_and_score(&whittle, &theta, &model_psd);
     let mut covariance = invert_spd(&fisher).ok_or_else(|| SpectrumFitError::NoConvergence {
         reason: "the Fisher information is singular: the parameters are not determined by the data in this range".into(),
     })?;
-    let model_psd = whittle.means_at(&theta);
-    let whittle_cost = whittle.cost_at(&theta);
+    let whittle_cost = whittle.cost_of(&model_psd);
     let flicker = whittle.flicker.as_ref().map(|column| FlickerTerm {
         density_at_1_hz: column.density_at_1_hz(&theta),
         density_at_1_hz_se: column.scale * covariance[column.index][column.index].sqrt(),
@@ -648,12 +652,15 @@ fn fisher_scoring(
     mut theta: Vec<f64>,
     max_iter: usize,
 ) -> (Vec<f64>, usize, bool) {
-    let mut cost = w.cost_at(&theta);
+    // The block means at theta, kept from the accepted trial so that the next Fisher step does
+    // not evaluate the model there again.
+    let mut means = w.means_at(&theta);
+    let mut cost = w.cost_of(&means);
     if !cost.is_finite() {
         return (theta, 0, false);
     }
     for iter in 1..=max_iter {
-        let (fisher, score) = fisher_and_score(w, &theta);
+        let (fisher, score) = fisher_and_score(w, &theta, &means);
         let Some(step) = solve_spd(&fisher, &score) else {
             return (theta, iter, false);
         };
@@ -665,9 +672,11 @@ fn fisher_scoring(
                 .zip(&step)
                 .map(|(t, s)| scale.mul_add(*s, *t))
                 .collect();
-            let c = w.cost_at(&trial);
+            let trial_means = w.means_at(&trial);
+            let c = w.cost_of(&trial_means);
             if c.is_finite() && c <= cost {
                 theta = trial;
+                means = trial_means;
                 cost = c;
                 improved = true;
                 break;

@@ -86,21 +86,10 @@ pub fn aliased_lorentzian_one_sided(
     diffusion: f64,
     sample_rate_hz: f64,
 ) -> f64 {
-    let cos_theta = (2.0 * PI * f_hz * (1.0 / sample_rate_hz)).cos();
-    aliased_lorentzian_from_cos(cos_theta, corner_frequency_hz, diffusion, sample_rate_hz)
-}
-
-/// [`aliased_lorentzian_one_sided`] from cos(2 pi f dt), for callers that keep it per frequency.
-fn aliased_lorentzian_from_cos(
-    cos_theta: f64,
-    corner_frequency_hz: f64,
-    diffusion: f64,
-    sample_rate_hz: f64,
-) -> f64 {
     let dt = 1.0 / sample_rate_hz;
     let c = (-2.0 * PI * corner_frequency_hz * dt).exp();
     let variance = diffusion / (2.0 * PI * corner_frequency_hz);
-    let denom = (2.0 * c).mul_add(-cos_theta, c.mul_add(c, 1.0));
+    let denom = (2.0 * c).mul_add(-(2.0 * PI * f_hz * dt).cos(), c.mul_add(c, 1.0));
     2.0 * variance * dt * c.mul_add(-c, 1.0) / denom
 }
 
@@ -126,8 +115,6 @@ struct AliasImage {
 #[derive(Clone, Debug, Default)]
 pub(crate) struct ImageTable {
     f_hz: f64,
-    /// cos(2 pi f dt), for the closed-form aliased Lorentzian.
-    cos_theta: f64,
     images: Vec<AliasImage>,
 }
 
@@ -387,49 +374,59 @@ impl SpectrumModel {
         if !self.tables_images() {
             return false;
         }
-        let (f_nu, f_m) = self
-            .hydro
-            .map_or((f64::INFINITY, f64::INFINITY), |h| (h.f_nu_hz, h.f_m_hz));
-        let fs = self.sample_rate_hz;
-        let dt = 1.0 / fs;
+        let filter = match self.filter {
+            FilterSetting::Fixed(filter) => Some(filter),
+            _ => None,
+        };
         table.f_hz = f_hz;
-        table.cos_theta = (2.0 * PI * f_hz * dt).cos();
         table.images.clear();
-        table.images.extend((-ALIAS_TERMS..=ALIAS_TERMS).map(|n| {
-            let f_signed = f64::from(n).mul_add(fs, f_hz);
-            let f = f_signed.abs();
-            let box_gain = self
-                .exposure_s
-                .map_or(1.0, |w| sinc_squared(PI * f_signed * w));
-            let gain = match self.filter {
-                FilterSetting::Fixed(filter) => filter.gain(f),
-                _ => 1.0,
-            };
-            let s = (f / f_nu).sqrt();
-            let damping = f.mul_add(s, f);
-            AliasImage {
-                shift: f.mul_add(s, f * f / f_m),
-                damping_squared: damping * damping,
-                weight: (1.0 + s) * gain * box_gain,
-                f_squared: f * f,
-                box_gain,
-            }
-        }));
+        table.images.extend(
+            (-ALIAS_TERMS..=ALIAS_TERMS).map(|n| self.alias_image(f_hz, n, filter.as_ref())),
+        );
         true
     }
 
-    /// `signal_psd` at a tabled frequency: the same sum as [`Self::signal_psd_direct`], with
-    /// each image's hydrodynamic term written as (D / pi^2) w / ((fc - f s - f^2/f_m)^2 +
-    /// f^2 (1 + s)^2), w = (1 + s) g sinc^2, and D / pi^2 taken out of the sums; equal to it up
-    /// to rounding (the tests compare the two).
+    /// The alias image n of `f_hz` under `filter` (see [`AliasImage`]).
+    fn alias_image(&self, f_hz: f64, n: i32, filter: Option<&DetectorFilter>) -> AliasImage {
+        let (f_nu, f_m) = self
+            .hydro
+            .map_or((f64::INFINITY, f64::INFINITY), |h| (h.f_nu_hz, h.f_m_hz));
+        let f_signed = f64::from(n).mul_add(self.sample_rate_hz, f_hz);
+        let f = f_signed.abs();
+        let box_gain = self
+            .exposure_s
+            .map_or(1.0, |w| sinc_squared(PI * f_signed * w));
+        let gain = filter.map_or(1.0, |filter| filter.gain(f));
+        let s = (f / f_nu).sqrt();
+        let damping = f.mul_add(s, f);
+        AliasImage {
+            shift: f.mul_add(s, f * f / f_m),
+            damping_squared: damping * damping,
+            weight: (1.0 + s) * gain * box_gain,
+            f_squared: f * f,
+            box_gain,
+        }
+    }
+
+    /// `signal_psd` at a tabled frequency: the sum of [`Self::signal_psd_direct`] with the
+    /// images taken from the table, so the two agree bit for bit (the tests check it).
     pub(crate) fn signal_psd_tabled(&self, table: &ImageTable, p: &Params) -> f64 {
+        self.image_sum(table.f_hz, p, table.images.iter().copied())
+    }
+
+    /// The numerically aliased spectrum from the images of `f_hz` (see `psd_params`): each
+    /// image's term is (D / pi^2) w / ((fc - f s - f^2/f_m)^2 + f^2 (1 + s)^2),
+    /// w = (1 + s) g sinc^2 (the drag spectrum of Berg-Sorensen & Flyvbjerg 2004 written per
+    /// image, with D / pi^2 taken out of the sum), and the Lorentzian's
+    /// (D / pi^2) sinc^2 / (fc^2 + f^2), for the tail estimate.
+    fn image_sum(&self, f_hz: f64, p: &Params, images: impl Iterator<Item = AliasImage>) -> f64 {
         let fc = p.fc;
         let fc_squared = fc * fc;
         let (mut drag_sum, mut lorentz_sum) = (0.0, 0.0);
         // Plain products and sums, not mul_add: without FMA among the compile-time target
         // features each mul_add is a library call, and this loop is most of a fit with drag.
         #[allow(clippy::suboptimal_flops)]
-        for image in &table.images {
+        for image in images {
             let re = fc - image.shift;
             drag_sum += image.weight / (re * re + image.damping_squared);
             lorentz_sum += image.box_gain / (fc_squared + image.f_squared);
@@ -437,8 +434,8 @@ impl SpectrumModel {
         let scale = p.d / (PI * PI);
         let fs = self.sample_rate_hz;
         let closed = match self.exposure_s {
-            Some(w) => blurred_component_one_sided(table.f_hz, fc, p.d / (2.0 * PI * fc), fs, w),
-            None => aliased_lorentzian_from_cos(table.cos_theta, fc, p.d, fs),
+            Some(w) => blurred_component_one_sided(f_hz, fc, p.d / (2.0 * PI * fc), fs, w),
+            None => aliased_lorentzian_one_sided(f_hz, fc, p.d, fs),
         };
         let cutoff = (f64::from(ALIAS_TERMS) + 0.5) * fs;
         let ratio = self.unaliased(cutoff, p) / lorentzian(cutoff, fc, p.d);
@@ -447,7 +444,8 @@ impl SpectrumModel {
             .mul_add(ratio, scale * drag_sum)
     }
 
-    /// The numerical image sum of `signal_psd` evaluated term by term (or the closed form).
+    /// The bead's spectrum: the closed form when the autocovariance is a sum of exponentials,
+    /// else the numerical image sum, its images computed afresh.
     fn signal_psd_direct(&self, f_hz: f64, p: &Params) -> f64 {
         if !self.aliasing {
             let box_gain = self.exposure_s.map_or(1.0, |w| sinc_squared(PI * f_hz * w));
@@ -464,22 +462,10 @@ impl SpectrumModel {
                 })
                 .sum();
         }
-        let blur = |f: f64| self.exposure_s.map_or(1.0, |w| sinc_squared(PI * f * w));
-        let closed = match self.exposure_s {
-            Some(w) => blurred_component_one_sided(f_hz, p.fc, p.d / (2.0 * PI * p.fc), fs, w),
-            None => aliased_lorentzian_one_sided(f_hz, p.fc, p.d, fs),
-        };
-        let mut sum = 0.0;
-        let mut lorentz_partial = 0.0;
-        for n in -ALIAS_TERMS..=ALIAS_TERMS {
-            let f = f64::from(n).mul_add(fs, f_hz);
-            let box_gain = blur(f);
-            sum += self.unaliased(f, p) * box_gain;
-            lorentz_partial += lorentzian(f, p.fc, p.d) * box_gain;
-        }
-        let cutoff = (f64::from(ALIAS_TERMS) + 0.5) * fs;
-        let ratio = self.unaliased(cutoff, p) / lorentzian(cutoff, p.fc, p.d);
-        (closed - lorentz_partial).max(0.0).mul_add(ratio, sum)
+        let filter = p.filter;
+        let images =
+            (-ALIAS_TERMS..=ALIAS_TERMS).map(|n| self.alias_image(f_hz, n, filter.as_ref()));
+        self.image_sum(f_hz, p, images)
     }
 
     /// The finite-segment (leakage) term of the expected periodogram of untapered segments of
@@ -627,8 +613,25 @@ impl SpectrumModel {
         let tables = self
             .tables_images()
             .then(|| nodes.map(|f| self.image_table(f)).map(Option::unwrap));
+        PreparedBlock {
+            nodes,
+            tables,
+            floor_gain: self.block_floor_gain(lower_hz, upper_hz, segments),
+        }
+    }
+
+    /// The block mean of dS/dP_n over [lower, upper] (dimensionless): the expected block mean
+    /// is linear in the white floor's level P_n with this slope, 1 plus the differenced
+    /// segments' finite-record term of `leakage_params`, P_n cos theta / (L (1 - cos theta)).
+    pub(crate) fn block_floor_gain(
+        &self,
+        lower_hz: f64,
+        upper_hz: f64,
+        segments: Option<Segments>,
+    ) -> f64 {
+        let nodes = block_nodes(lower_hz, upper_hz);
         let dt = 1.0 / self.sample_rate_hz;
-        let floor_gain = block_average(|i| {
+        block_average(|i| {
             let f_hz = nodes[i];
             match segments {
                 Some(seg) if self.aliasing && f_hz >= seg.differenced_from_hz => {
@@ -642,12 +645,7 @@ impl SpectrumModel {
                 }
                 _ => 1.0,
             }
-        });
-        PreparedBlock {
-            nodes,
-            tables,
-            floor_gain,
-        }
+        })
     }
 
     /// [`Self::block_mean`] of a prepared block: the same quadrature, with the image sums

@@ -1075,10 +1075,10 @@ fn drag_models(fs: f64) -> Vec<SpectrumModel> {
 #[test]
 fn tabled_image_sums_equal_the_image_sums_term_by_term() {
     // The fit and the covariance integral evaluate the drag model's image sum from tables built
-    // once per frequency (`SpectrumModel::image_table`); that is the same sum, rearranged, so
-    // the two agree to rounding over the whole band (0 to f_Nyquist), for corner frequencies
-    // from far below to a quarter of the sample rate. Tolerance 1e-13: 49 images of one sign,
-    // each a few roundings off.
+    // once per frequency (`SpectrumModel::image_table`); the images are the ones the model
+    // computes afresh otherwise, summed by the same code, so the two agree bit for bit over
+    // the whole band (0 to f_Nyquist), for corner frequencies from far below to a quarter of
+    // the sample rate (the covariance integral's central differences rely on it).
     let fs = 50_000.0;
     for model in drag_models(fs) {
         assert!(model.tables_images(), "{model:?}");
@@ -1091,10 +1091,10 @@ fn tabled_image_sums_equal_the_image_sums_term_by_term() {
             for i in 0..=256 {
                 let f = fs / 2.0 * i as f64 / 256.0;
                 let table = model.image_table(f).expect("tabled");
-                check_close(
+                assert_eq!(
                     model.signal_psd_tabled(&table, &p) + p.noise_floor,
                     model.psd_params(f, &p),
-                    1e-13,
+                    "{model:?} fc {fc} f {f}"
                 );
             }
             // Block means with the finite-segment term, plain and differenced segments.
@@ -1104,10 +1104,10 @@ fn tabled_image_sums_equal_the_image_sums_term_by_term() {
             });
             for (lower, upper) in [(10.0, 40.0), (1_000.0, 3_000.0), (19_000.0, 20_000.0)] {
                 let block = model.prepare_block(lower, upper, segments);
-                check_close(
+                assert_eq!(
                     model.prepared_block_mean(&block, &p, segments),
                     model.block_mean(lower, upper, &p, segments),
-                    1e-13,
+                    "{model:?} fc {fc} block {lower}-{upper}"
                 );
             }
         }
