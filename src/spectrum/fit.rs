@@ -829,11 +829,12 @@ mod tests {
             .map(|i| {
                 let lower_hz = 10.0 * 1.8f64.powi(i);
                 let upper_hz = 1.8 * lower_hz;
+                let x = lower_hz / 950.0;
                 Block {
                     frequency_hz: 0.5 * (lower_hz + upper_hz),
                     lower_hz,
                     upper_hz,
-                    psd: 1e-4 / (1.0 + (lower_hz / 950.0).powi(2)),
+                    psd: 1e-4 / x.mul_add(x, 1.0),
                     n_bins: 40,
                     n_averaged: 40,
                 }

@@ -419,13 +419,13 @@ impl SpectrumModel {
     /// w = (1 + s) g sinc^2 (the drag spectrum of Berg-Sorensen & Flyvbjerg 2004 written per
     /// image, with D / pi^2 taken out of the sum), and the Lorentzian's
     /// (D / pi^2) sinc^2 / (fc^2 + f^2), for the tail estimate.
+    // Plain products and sums, not mul_add: without FMA among the compile-time target features
+    // each mul_add is a library call, and the loop below is most of a fit with drag.
+    #[allow(clippy::suboptimal_flops)]
     fn image_sum(&self, f_hz: f64, p: &Params, images: impl Iterator<Item = AliasImage>) -> f64 {
         let fc = p.fc;
         let fc_squared = fc * fc;
         let (mut drag_sum, mut lorentz_sum) = (0.0, 0.0);
-        // Plain products and sums, not mul_add: without FMA among the compile-time target
-        // features each mul_add is a library call, and this loop is most of a fit with drag.
-        #[allow(clippy::suboptimal_flops)]
         for image in images {
             let re = fc - image.shift;
             drag_sum += image.weight / (re * re + image.damping_squared);
@@ -587,7 +587,9 @@ impl SpectrumModel {
 
     /// Mean of the expected periodogram over the frequency interval [lower, upper], by 3-point
     /// Gauss-Legendre quadrature (exact for cubics), which stands for the mean over the discrete
-    /// bins of a block.
+    /// bins of a block. The fit uses [`Self::prepared_block_mean`]; this is what the tests check
+    /// it against.
+    #[cfg(test)]
     pub(crate) fn block_mean(
         &self,
         lower_hz: f64,
