@@ -812,7 +812,8 @@ mod tests {
         // d ln S_b / d theta for ln D, ln P_n and the 1/f term is written out exactly in
         // `log_derivatives`; central differences of step 1e-6 of the same means (truncation
         // about 1e-12 relative, rounding about 1e-10) must agree with it to 1e-8 on a drag model
-        // with a floor and a 1/f term, on differenced and plain blocks.
+        // with a floor and a 1/f term, on differenced and plain blocks (drag scales of the order
+        // of a 1 um bead's in water, rounded; synthetic block powers, a Lorentzian of fc 950 Hz).
         let fs = 50_000.0;
         let model = SpectrumModel {
             sample_rate_hz: fs,

@@ -1040,8 +1040,10 @@ fn the_flicker_term_recovers_fc_d_and_the_drift_from_the_exact_spectrum() {
 }
 
 /// Models that sum their alias images numerically with the drag of a 1 um polystyrene bead in
-/// water at 25 C (f_nu and f_m from `drag::hydrodynamic_frequencies`), alone and with each term
-/// the image tables fold in: a fixed filter, a camera's exposure, the white floor.
+/// water at 25 C (f_nu and f_m from `drag::hydrodynamic_frequencies` with viscosity 0.89 mPa s,
+/// water 997 kg/m^3 and polystyrene 1050 kg/m^3, values from memory; any positive scales would
+/// do for this test), alone and with each term the image tables fold in: a fixed filter, a
+/// camera's exposure, the white floor.
 fn drag_models(fs: f64) -> Vec<SpectrumModel> {
     let h = crate::drag::hydrodynamic_frequencies(0.89e-3, 997.0, 1050.0, 0.5e-6);
     let hydro = Some(HydroTerms {
