@@ -22,7 +22,8 @@
 //! With these weights Var(theta) reproduces F^-1 and Var(s^2) the Bartlett formula, which the
 //! tests check.
 
-use crate::spectrum::{FilterSetting, Params, SpectrumModel};
+use crate::spectrum::{FilterSetting, ImageTable, Params, SpectrumModel};
+use std::cell::RefCell;
 use std::f64::consts::PI;
 
 /// Everything the covariance integrals need, in plain numbers.
@@ -223,13 +224,17 @@ enum SpectrumAndGradient<'a> {
         /// 2 a c.
         two_a_c: f64,
     },
-    /// Any other model: S from `psd_params`, d ln S / d theta by central differences with the
+    /// Any other model: S from `psd_params` (from the frequency's image table, built once for
+    /// the 1 + 2 n evaluations, when the model tables its alias images: see
+    /// `SpectrumModel::image_table`), d ln S / d theta by central differences with the
     /// parameters of theta and of theta +- h e_j decoded once.
     Numerical {
         model: &'a SpectrumModel,
         centre: Params,
         /// (theta + h e_j, theta - h e_j) decoded, for each parameter j.
         steps: Vec<(Params, Params)>,
+        /// The image table of the frequency last evaluated (reused storage).
+        table: RefCell<ImageTable>,
     },
 }
 
@@ -270,26 +275,39 @@ impl<'a> SpectrumAndGradient<'a> {
             model,
             centre: model.decode(theta),
             steps,
+            table: RefCell::new(ImageTable::default()),
         }
     }
 
     /// S(f), signal-units^2/Hz.
     fn value(&self, f_hz: f64) -> f64 {
         match self {
-            SpectrumAndGradient::ClosedForm {
+            &SpectrumAndGradient::ClosedForm {
                 dt, c, numerator, ..
             } => {
                 let cos = (2.0 * PI * f_hz * dt).cos();
-                numerator / (2.0 * c).mul_add(-cos, c.mul_add(*c, 1.0))
+                numerator / (2.0 * c).mul_add(-cos, c.mul_add(c, 1.0))
             }
-            SpectrumAndGradient::Numerical { model, centre, .. } => model.psd_params(f_hz, centre),
+            SpectrumAndGradient::Numerical {
+                model,
+                centre,
+                table,
+                ..
+            } => {
+                let mut table = table.borrow_mut();
+                if model.fill_image_table(f_hz, &mut table) {
+                    model.signal_psd_tabled(&table, centre) + centre.noise_floor
+                } else {
+                    model.psd_params(f_hz, centre)
+                }
+            }
         }
     }
 
     /// S(f), and d ln S / d theta written into `dlns` (one slot per parameter).
     fn value_and_log_gradient(&self, f_hz: f64, dlns: &mut [f64]) -> f64 {
         match self {
-            SpectrumAndGradient::ClosedForm {
+            &SpectrumAndGradient::ClosedForm {
                 dt,
                 c,
                 numerator,
@@ -297,7 +315,7 @@ impl<'a> SpectrumAndGradient<'a> {
                 two_a_c,
             } => {
                 let cos = (2.0 * PI * f_hz * dt).cos();
-                let den = (2.0 * c).mul_add(-cos, c.mul_add(*c, 1.0));
+                let den = (2.0 * c).mul_add(-cos, c.mul_add(c, 1.0));
                 dlns[0] = (two_a_c * (c - cos) / den) + dlns_dlnfc_constant;
                 dlns[1] = 1.0;
                 numerator / den
@@ -306,13 +324,21 @@ impl<'a> SpectrumAndGradient<'a> {
                 model,
                 centre,
                 steps,
+                table,
             } => {
+                let mut table = table.borrow_mut();
+                let tabled = model.fill_image_table(f_hz, &mut table);
+                let psd = |p: &Params| {
+                    if tabled {
+                        model.signal_psd_tabled(&table, p) + p.noise_floor
+                    } else {
+                        model.psd_params(f_hz, p)
+                    }
+                };
                 for (d, (up, down)) in dlns.iter_mut().zip(steps) {
-                    let up = model.psd_params(f_hz, up).ln();
-                    let down = model.psd_params(f_hz, down).ln();
-                    *d = (up - down) / (2.0 * DERIVATIVE_STEP);
+                    *d = (psd(up).ln() - psd(down).ln()) / (2.0 * DERIVATIVE_STEP);
                 }
-                model.psd_params(f_hz, centre)
+                psd(centre)
             }
         }
     }

@@ -113,20 +113,12 @@ fn score_at_zero(
     periodogram: &Periodogram,
 ) -> (f64, f64) {
     let model = &with_floor.model;
-    let mut theta = fit.theta.clone();
-    theta.push(0.0);
-    let unit = model.decode(&theta);
-    let mut none = unit;
-    none.noise_floor = 0.0;
     let segments = Some(super::model::Segments {
         len: periodogram.segment_len,
         differenced_from_hz: (periodogram.first_differenced_bin as f64 - 0.5)
             * periodogram.resolution_hz(),
     });
-    let gain = |b: &Block| {
-        model.block_mean(b.lower_hz, b.upper_hz, &unit, segments)
-            - model.block_mean(b.lower_hz, b.upper_hz, &none, segments)
-    };
+    let gain = |b: &Block| model.block_floor_gain(b.lower_hz, b.upper_hz, segments);
     let mut score = 0.0;
     let mut information = 0.0;
     for (b, s) in fit.blocks.iter().zip(&fit.model_psd) {

@@ -34,10 +34,10 @@ pub use floor::{
     NoiseFloorTest, boundary_mixture_p_value, fit_spectrum_with_floor,
 };
 pub use lines::{SpectralLine, fit_line, line_at, subtract_lines};
-pub(crate) use model::Params;
 pub use model::{
     DetectorFilter, FilterSetting, HydroTerms, SpectrumModel, aliased_lorentzian_one_sided,
 };
+pub(crate) use model::{ImageTable, Params};
 pub use peaks::{NarrowPeak, find_narrow_peaks};
 
 /// An averaged one-sided periodogram.

@@ -93,6 +93,31 @@ pub fn aliased_lorentzian_one_sided(
     2.0 * variance * dt * c.mul_add(-c, 1.0) / denom
 }
 
+/// One alias image f_n = f + n fs of a frequency, as the numerical image sum sees it, with
+/// s = sqrt(|f_n| / f_nu) (0 without drag), g the fixed filter's gain and sinc^2 the camera's
+/// box-car gain at f_n (1 without them).
+#[derive(Clone, Copy, Debug)]
+struct AliasImage {
+    /// |f_n| s + f_n^2 / f_m, Hz.
+    shift: f64,
+    /// (|f_n| (1 + s))^2, Hz^2.
+    damping_squared: f64,
+    /// (1 + s) g sinc^2.
+    weight: f64,
+    /// f_n^2, Hz^2.
+    f_squared: f64,
+    /// sinc^2(pi f_n W).
+    box_gain: f64,
+}
+
+/// The alias images of one frequency for the numerical image sum (see
+/// `SpectrumModel::image_table`).
+#[derive(Clone, Debug, Default)]
+pub(crate) struct ImageTable {
+    f_hz: f64,
+    images: Vec<AliasImage>,
+}
+
 /// Plain one-sided Lorentzian D / (pi^2 (fc^2 + f^2)).
 fn lorentzian(f_hz: f64, fc: f64, d: f64) -> f64 {
     d / (PI * PI * fc.mul_add(fc, f_hz * f_hz))
@@ -323,6 +348,105 @@ impl SpectrumModel {
 
     /// The bead's part of `psd_params`, without the white noise floor.
     fn signal_psd(&self, f_hz: f64, p: &Params) -> f64 {
+        self.signal_psd_direct(f_hz, p)
+    }
+
+    /// Whether the numerical image sum of `signal_psd` can be tabled: aliasing on, drag
+    /// modelled (without it the closed form applies, except for a fixed filter whose f3dB
+    /// nearly meets fc), and a filter, if any, fixed (a fitted one changes each image's gain
+    /// with theta).
+    pub(crate) fn tables_images(&self) -> bool {
+        self.aliasing && self.hydro.is_some() && !matches!(self.filter, FilterSetting::Fitted(_))
+    }
+
+    /// The alias images of `f_hz` with what `signal_psd` computes of them that does not depend
+    /// on the parameters, or `None` when the model does not sum images it can table (see
+    /// [`Self::tables_images`]). A fit evaluates the model at the same frequencies for every
+    /// theta it tries, so it builds the tables once (`spectrum::fit`).
+    pub(crate) fn image_table(&self, f_hz: f64) -> Option<ImageTable> {
+        let mut table = ImageTable::default();
+        self.fill_image_table(f_hz, &mut table).then_some(table)
+    }
+
+    /// [`Self::image_table`] written into `table`, reusing its storage; false (and `table`
+    /// unchanged) when the model does not table its images.
+    pub(crate) fn fill_image_table(&self, f_hz: f64, table: &mut ImageTable) -> bool {
+        if !self.tables_images() {
+            return false;
+        }
+        let filter = match self.filter {
+            FilterSetting::Fixed(filter) => Some(filter),
+            _ => None,
+        };
+        table.f_hz = f_hz;
+        table.images.clear();
+        table.images.extend(
+            (-ALIAS_TERMS..=ALIAS_TERMS).map(|n| self.alias_image(f_hz, n, filter.as_ref())),
+        );
+        true
+    }
+
+    /// The alias image n of `f_hz` under `filter` (see [`AliasImage`]).
+    fn alias_image(&self, f_hz: f64, n: i32, filter: Option<&DetectorFilter>) -> AliasImage {
+        let (f_nu, f_m) = self
+            .hydro
+            .map_or((f64::INFINITY, f64::INFINITY), |h| (h.f_nu_hz, h.f_m_hz));
+        let f_signed = f64::from(n).mul_add(self.sample_rate_hz, f_hz);
+        let f = f_signed.abs();
+        let box_gain = self
+            .exposure_s
+            .map_or(1.0, |w| sinc_squared(PI * f_signed * w));
+        let gain = filter.map_or(1.0, |filter| filter.gain(f));
+        let s = (f / f_nu).sqrt();
+        let damping = f.mul_add(s, f);
+        AliasImage {
+            shift: f.mul_add(s, f * f / f_m),
+            damping_squared: damping * damping,
+            weight: (1.0 + s) * gain * box_gain,
+            f_squared: f * f,
+            box_gain,
+        }
+    }
+
+    /// `signal_psd` at a tabled frequency: the sum of [`Self::signal_psd_direct`] with the
+    /// images taken from the table, so the two agree bit for bit (the tests check it).
+    pub(crate) fn signal_psd_tabled(&self, table: &ImageTable, p: &Params) -> f64 {
+        self.image_sum(table.f_hz, p, table.images.iter().copied())
+    }
+
+    /// The numerically aliased spectrum from the images of `f_hz` (see `psd_params`): each
+    /// image's term is (D / pi^2) w / ((fc - f s - f^2/f_m)^2 + f^2 (1 + s)^2),
+    /// w = (1 + s) g sinc^2 (the drag spectrum of Berg-Sorensen & Flyvbjerg 2004 written per
+    /// image, with D / pi^2 taken out of the sum), and the Lorentzian's
+    /// (D / pi^2) sinc^2 / (fc^2 + f^2), for the tail estimate.
+    // Plain products and sums, not mul_add: without FMA among the compile-time target features
+    // each mul_add is a library call, and the loop below is most of a fit with drag.
+    #[allow(clippy::suboptimal_flops)]
+    fn image_sum(&self, f_hz: f64, p: &Params, images: impl Iterator<Item = AliasImage>) -> f64 {
+        let fc = p.fc;
+        let fc_squared = fc * fc;
+        let (mut drag_sum, mut lorentz_sum) = (0.0, 0.0);
+        for image in images {
+            let re = fc - image.shift;
+            drag_sum += image.weight / (re * re + image.damping_squared);
+            lorentz_sum += image.box_gain / (fc_squared + image.f_squared);
+        }
+        let scale = p.d / (PI * PI);
+        let fs = self.sample_rate_hz;
+        let closed = match self.exposure_s {
+            Some(w) => blurred_component_one_sided(f_hz, fc, p.d / (2.0 * PI * fc), fs, w),
+            None => aliased_lorentzian_one_sided(f_hz, fc, p.d, fs),
+        };
+        let cutoff = (f64::from(ALIAS_TERMS) + 0.5) * fs;
+        let ratio = self.unaliased(cutoff, p) / lorentzian(cutoff, fc, p.d);
+        (closed - scale * lorentz_sum)
+            .max(0.0)
+            .mul_add(ratio, scale * drag_sum)
+    }
+
+    /// The bead's spectrum: the closed form when the autocovariance is a sum of exponentials,
+    /// else the numerical image sum, its images computed afresh.
+    fn signal_psd_direct(&self, f_hz: f64, p: &Params) -> f64 {
         if !self.aliasing {
             let box_gain = self.exposure_s.map_or(1.0, |w| sinc_squared(PI * f_hz * w));
             return self.unaliased(f_hz, p) * box_gain;
@@ -338,22 +462,10 @@ impl SpectrumModel {
                 })
                 .sum();
         }
-        let blur = |f: f64| self.exposure_s.map_or(1.0, |w| sinc_squared(PI * f * w));
-        let closed = match self.exposure_s {
-            Some(w) => blurred_component_one_sided(f_hz, p.fc, p.d / (2.0 * PI * p.fc), fs, w),
-            None => aliased_lorentzian_one_sided(f_hz, p.fc, p.d, fs),
-        };
-        let mut sum = 0.0;
-        let mut lorentz_partial = 0.0;
-        for n in -ALIAS_TERMS..=ALIAS_TERMS {
-            let f = f64::from(n).mul_add(fs, f_hz);
-            let box_gain = blur(f);
-            sum += self.unaliased(f, p) * box_gain;
-            lorentz_partial += lorentzian(f, p.fc, p.d) * box_gain;
-        }
-        let cutoff = (f64::from(ALIAS_TERMS) + 0.5) * fs;
-        let ratio = self.unaliased(cutoff, p) / lorentzian(cutoff, p.fc, p.d);
-        (closed - lorentz_partial).max(0.0).mul_add(ratio, sum)
+        let filter = p.filter;
+        let images =
+            (-ALIAS_TERMS..=ALIAS_TERMS).map(|n| self.alias_image(f_hz, n, filter.as_ref()));
+        self.image_sum(f_hz, p, images)
     }
 
     /// The finite-segment (leakage) term of the expected periodogram of untapered segments of
@@ -475,7 +587,9 @@ impl SpectrumModel {
 
     /// Mean of the expected periodogram over the frequency interval [lower, upper], by 3-point
     /// Gauss-Legendre quadrature (exact for cubics), which stands for the mean over the discrete
-    /// bins of a block.
+    /// bins of a block. The fit uses [`Self::prepared_block_mean`]; this is what the tests check
+    /// it against.
+    #[cfg(test)]
     pub(crate) fn block_mean(
         &self,
         lower_hz: f64,
@@ -483,12 +597,105 @@ impl SpectrumModel {
         p: &Params,
         segments: Option<Segments>,
     ) -> f64 {
-        let mid = 0.5 * (lower_hz + upper_hz);
-        let half = 0.5 * (upper_hz - lower_hz);
-        let node = half * (3.0f64 / 5.0).sqrt();
-        let w_outer = 5.0 / 18.0;
-        let w_mid = 8.0 / 18.0;
-        let at = |f| self.expected_periodogram(f, p, segments);
-        w_outer * (at(mid - node) + at(mid + node)) + w_mid * at(mid)
+        let nodes = block_nodes(lower_hz, upper_hz);
+        block_average(|i| self.expected_periodogram(nodes[i], p, segments))
     }
+
+    /// A block's quadrature nodes with what the model computes at them that does not depend on
+    /// the parameters: the image tables (see [`Self::image_table`]) and the block mean of
+    /// dS/dP_n, the white floor's own gain (1, plus the differenced segments' finite-record term
+    /// of `leakage_params`), so that a fit pays for them once.
+    pub(crate) fn prepare_block(
+        &self,
+        lower_hz: f64,
+        upper_hz: f64,
+        segments: Option<Segments>,
+    ) -> PreparedBlock {
+        let nodes = block_nodes(lower_hz, upper_hz);
+        let tables = self
+            .tables_images()
+            .then(|| nodes.map(|f| self.image_table(f)).map(Option::unwrap));
+        PreparedBlock {
+            nodes,
+            tables,
+            floor_gain: self.block_floor_gain(lower_hz, upper_hz, segments),
+        }
+    }
+
+    /// The block mean of dS/dP_n over [lower, upper] (dimensionless): the expected block mean
+    /// is linear in the white floor's level P_n with this slope, 1 plus the differenced
+    /// segments' finite-record term of `leakage_params`, P_n cos theta / (L (1 - cos theta)).
+    pub(crate) fn block_floor_gain(
+        &self,
+        lower_hz: f64,
+        upper_hz: f64,
+        segments: Option<Segments>,
+    ) -> f64 {
+        let nodes = block_nodes(lower_hz, upper_hz);
+        let dt = 1.0 / self.sample_rate_hz;
+        block_average(|i| {
+            let f_hz = nodes[i];
+            match segments {
+                Some(seg) if self.aliasing && f_hz >= seg.differenced_from_hz => {
+                    let cos_theta = (2.0 * PI * f_hz * dt).cos();
+                    let gain = 2.0 * (1.0 - cos_theta);
+                    if gain > 0.0 {
+                        1.0 + 2.0 * cos_theta / (seg.len as f64 * gain)
+                    } else {
+                        1.0
+                    }
+                }
+                _ => 1.0,
+            }
+        })
+    }
+
+    /// [`Self::block_mean`] of a prepared block: the same quadrature, with the image sums
+    /// evaluated from their tables.
+    pub(crate) fn prepared_block_mean(
+        &self,
+        block: &PreparedBlock,
+        p: &Params,
+        segments: Option<Segments>,
+    ) -> f64 {
+        let Some(tables) = &block.tables else {
+            return block_average(|i| self.expected_periodogram(block.nodes[i], p, segments));
+        };
+        block_average(|i| {
+            let f_hz = block.nodes[i];
+            let s = self.signal_psd_tabled(&tables[i], p) + p.noise_floor;
+            match segments {
+                Some(seg) if self.aliasing => {
+                    s + self.leakage_params(f_hz, p, seg.len, f_hz >= seg.differenced_from_hz)
+                }
+                _ => s,
+            }
+        })
+    }
+}
+
+/// A block of a fit prepared for repeated evaluation (see `SpectrumModel::prepare_block`).
+#[derive(Clone, Debug)]
+pub(crate) struct PreparedBlock {
+    nodes: [f64; 3],
+    tables: Option<[ImageTable; 3]>,
+    /// Block mean of dS/dP_n (dimensionless): the expected block mean is linear in the white
+    /// floor's level with this slope.
+    pub(crate) floor_gain: f64,
+}
+
+/// The three Gauss-Legendre nodes on [lower, upper], in the order `block_average` weighs them.
+fn block_nodes(lower_hz: f64, upper_hz: f64) -> [f64; 3] {
+    let mid = 0.5 * (lower_hz + upper_hz);
+    let half = 0.5 * (upper_hz - lower_hz);
+    let node = half * (3.0f64 / 5.0).sqrt();
+    [mid - node, mid + node, mid]
+}
+
+/// The 3-point Gauss-Legendre mean (exact for cubics) of the values `at(i)` at the nodes of
+/// [`block_nodes`].
+fn block_average(at: impl Fn(usize) -> f64) -> f64 {
+    let w_outer = 5.0 / 18.0;
+    let w_mid = 8.0 / 18.0;
+    w_outer * (at(0) + at(1)) + w_mid * at(2)
 }

@@ -1038,3 +1038,111 @@ fn the_flicker_term_recovers_fc_d_and_the_drift_from_the_exact_spectrum() {
         );
     }
 }
+
+/// Models that sum their alias images numerically with the drag of a 1 um polystyrene bead in
+/// water at 25 C (f_nu and f_m from `drag::hydrodynamic_frequencies` with viscosity 0.89 mPa s,
+/// water 997 kg/m^3 and polystyrene 1050 kg/m^3, values from memory; any positive scales would
+/// do for this test), alone and with each term the image tables fold in: a fixed filter, a
+/// camera's exposure, the white floor.
+fn drag_models(fs: f64) -> Vec<SpectrumModel> {
+    let h = crate::drag::hydrodynamic_frequencies(0.89e-3, 997.0, 1050.0, 0.5e-6);
+    let hydro = Some(HydroTerms {
+        f_nu_hz: h.f_nu_hz,
+        f_m_hz: h.f_m_hz,
+    });
+    let drag = SpectrumModel {
+        hydro,
+        ..ideal_model(fs)
+    };
+    vec![
+        drag,
+        SpectrumModel {
+            filter: FilterSetting::Fixed(DetectorFilter {
+                f3db_hz: 7_000.0,
+                alpha: 0.4,
+            }),
+            ..drag
+        },
+        SpectrumModel {
+            exposure_s: Some(0.6 / fs),
+            ..drag
+        },
+        SpectrumModel {
+            noise_floor: true,
+            ..drag
+        },
+    ]
+}
+
+#[test]
+fn tabled_image_sums_equal_the_image_sums_term_by_term() {
+    // The fit and the covariance integral evaluate the drag model's image sum from tables built
+    // once per frequency (`SpectrumModel::image_table`); the images are the ones the model
+    // computes afresh otherwise, summed by the same code, so the two agree bit for bit over
+    // the whole band (0 to f_Nyquist), for corner frequencies from far below to a quarter of
+    // the sample rate (the covariance integral's central differences rely on it).
+    let fs = 50_000.0;
+    for model in drag_models(fs) {
+        assert!(model.tables_images(), "{model:?}");
+        for fc in [30.0, 950.0, 12_500.0] {
+            let mut theta = model.initial_theta(fc, 0.6);
+            if let Some(i) = model.noise_floor_index() {
+                theta[i] = 1e-9f64.ln();
+            }
+            let p = model.decode(&theta);
+            for i in 0..=256 {
+                let f = fs / 2.0 * i as f64 / 256.0;
+                let table = model.image_table(f).expect("tabled");
+                assert_eq!(
+                    model.signal_psd_tabled(&table, &p) + p.noise_floor,
+                    model.psd_params(f, &p),
+                    "{model:?} fc {fc} f {f}"
+                );
+            }
+            // Block means with the finite-segment term, plain and differenced segments.
+            let segments = Some(model::Segments {
+                len: 4096,
+                differenced_from_hz: 2_000.0,
+            });
+            for (lower, upper) in [(10.0, 40.0), (1_000.0, 3_000.0), (19_000.0, 20_000.0)] {
+                let block = model.prepare_block(lower, upper, segments);
+                assert_eq!(
+                    model.prepared_block_mean(&block, &p, segments),
+                    model.block_mean(lower, upper, &p, segments),
+                    "{model:?} fc {fc} block {lower}-{upper}"
+                );
+            }
+        }
+    }
+}
+
+#[test]
+fn only_models_that_sum_images_with_theta_free_gains_are_tabled() {
+    // The closed form needs no table; a fitted filter changes each image's gain with theta.
+    let fs = 50_000.0;
+    let drag = drag_models(fs)[0];
+    assert!(ideal_model(fs).image_table(100.0).is_none());
+    let fitted = SpectrumModel {
+        filter: FilterSetting::Fitted(DetectorFilter {
+            f3db_hz: 7_000.0,
+            alpha: 0.4,
+        }),
+        ..drag
+    };
+    assert!(fitted.image_table(100.0).is_none());
+    assert!(
+        SpectrumModel {
+            aliasing: false,
+            ..drag
+        }
+        .image_table(100.0)
+        .is_none()
+    );
+    // An untabled model's prepared block mean is its block mean, bit for bit.
+    let p = fitted.decode(&fitted.initial_theta(950.0, 0.6));
+    let block = fitted.prepare_block(1_000.0, 3_000.0, None);
+    assert_eq!(
+        fitted.prepared_block_mean(&block, &p, None),
+        fitted.block_mean(1_000.0, 3_000.0, &p, None)
+    );
+}
