@@ -9,6 +9,8 @@
 mod axis;
 #[cfg(test)]
 mod camera_blur_tests;
+#[cfg(test)]
+mod combined_effects_tests;
 mod conditions;
 pub mod consensus;
 mod coupling;
