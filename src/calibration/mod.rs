@@ -12,6 +12,8 @@ mod active_tests;
 mod axis;
 #[cfg(test)]
 mod camera_blur_tests;
+#[cfg(test)]
+mod combined_effects_tests;
 mod conditions;
 pub mod consensus;
 mod coupling;

@@ -163,8 +163,25 @@ pub(crate) fn spectral_stage(
         },
         Err(e) => (Err(e), None),
     };
+    // With a floor now in the model, a term adopted before is tested again beside it, and a
+    // term refused before (a floor the model lacked spoils the refit with the term alone) is
+    // tested beside it for the first time.
     let fit = match fit {
-        Ok(f) => Ok(drift::retest_beside_floor(&periodogram, &fit_options, &f).unwrap_or(f)),
+        Ok(f) if fit_options.flicker => {
+            Ok(drift::retest_beside_floor(&periodogram, &fit_options, &f).unwrap_or(f))
+        }
+        Ok(f) => match drift::test_beside_floor(
+            &periodogram,
+            &fit_options,
+            &f,
+            flicker_test.is_some_and(|t| t.confirmed_below_range),
+        ) {
+            Some((refit, test)) => {
+                flicker_test = Some(test);
+                Ok(refit)
+            }
+            None => Ok(f),
+        },
         Err(e) => Err(e),
     };
     let model = fit.as_ref().map_or(model, |f| f.model);

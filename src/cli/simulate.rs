@@ -136,6 +136,12 @@ pub struct SimulateArgs {
     /// The driven axis (default: the first).
     #[arg(long, value_name = "NAME", requires = "drive_frequency")]
     pub drive_axis: Option<String>,
+    /// Turn the trap in the lateral plane: its principal axes lie DEG degrees from the detector's
+    /// first lateral axis towards the second, --stiffness gives the stiffness along them, and
+    /// the two lateral axes record the turned motion (with every other term of the recording
+    /// turned alike). Needs exactly two lateral axes.
+    #[arg(long, value_name = "DEG", allow_negative_numbers = true)]
+    pub trap_angle: Option<f64>,
     /// Where to write the truth (default: OUTPUT with `.truth.json` appended).
     #[arg(long)]
     pub truth: Option<PathBuf>,
@@ -160,6 +166,11 @@ struct Truth {
     /// Only with --drive-frequency.
     #[serde(skip_serializing_if = "Option::is_none")]
     drive: Option<DriveTruth>,
+    /// Only with --trap-angle: the turn of the trap's principal axes from the first lateral
+    /// detector axis towards the second; the lateral entries of `axes` then describe the
+    /// principal axes (the one nearest each detector axis carries its name).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    trap_angle_deg: Option<f64>,
     axes: Vec<AxisTruth>,
 }
 
@@ -297,7 +308,10 @@ pub(super) fn run(args: &SimulateArgs) -> Result<u8, Failure> {
     let terms = instrument_terms(args, unit, &conditions, &physics)?;
     let drive = drive_of(args, &axes, &terms, scale)?;
     let drive_line = drive.as_ref().map(|(i, line, _)| (*i, *line));
-    let series = simulate_series(args, &mut axes, &terms, scale, unit, n_samples, drive_line)?;
+    let mut series = simulate_series(args, &mut axes, &terms, scale, unit, n_samples, drive_line)?;
+    if let Some(deg) = args.trap_angle {
+        turn_trap(&mut series, &axes, deg)?;
+    }
     let recording = Recording {
         sample_rate_hz: args.sample_rate,
         unit,
@@ -327,6 +341,7 @@ pub(super) fn run(args: &SimulateArgs) -> Result<u8, Failure> {
         thermal_energy_pn_nm: physics.thermal_energy_j * 1e21,
         start_nm: args.start_nm,
         drive: drive.map(|(_, _, truth)| truth),
+        trap_angle_deg: args.trap_angle,
         axes: axes.into_iter().map(|a| a.truth).collect(),
     };
     let truth_path = args.truth.clone().unwrap_or_else(|| {
@@ -351,6 +366,35 @@ pub(super) fn run(args: &SimulateArgs) -> Result<u8, Failure> {
         truth_path.display()
     );
     Ok(0)
+}
+
+/// Expresses the motion along the trap's principal axes (the two lateral axes' series, in
+/// order) along detector axes turned by -`deg` degrees from them, so that the principal axes
+/// lie `deg` degrees from the first detector axis towards the second: x = p1 cos - p2 sin,
+/// y = p1 sin + p2 cos (an exact rotation; of two independent Ornstein-Uhlenbeck processes it
+/// gives the turned trap's joint Gaussian process).
+fn turn_trap(series: &mut [Vec<f64>], axes: &[SimAxis], deg: f64) -> Result<(), Failure> {
+    if !(deg.is_finite() && deg.abs() <= 90.0) {
+        return Err(usage(format!(
+            "--trap-angle {deg} must be an angle in degrees between -90 and 90"
+        )));
+    }
+    let lateral: Vec<usize> = axes
+        .iter()
+        .enumerate()
+        .filter(|(_, a)| !a.ou.name.eq_ignore_ascii_case("z"))
+        .map(|(i, _)| i)
+        .collect();
+    let &[first, second] = lateral.as_slice() else {
+        return Err(usage(format!(
+            "--trap-angle turns the lateral plane and needs exactly two lateral axes (not z); got {}: give two or three values to --stiffness",
+            lateral.len()
+        )));
+    };
+    let (x, y) = calibration::principal::rotate(&series[first], &series[second], -deg.to_radians());
+    series[first] = x;
+    series[second] = y;
+    Ok(())
 }
 
 /// The output format from --format or the file extension.

@@ -630,6 +630,30 @@ pub fn likelihood_gain(
     if alternative.n_params() != fit.theta.len() {
         return None;
     }
+    likelihood_gain_from(
+        fit,
+        periodogram,
+        alternative,
+        &|theta| vec![theta.to_vec()],
+        200,
+    )
+    .map(|(gain, _)| gain)
+}
+
+/// [`likelihood_gain`] for an alternative with more parameters than `fit.model` (the same model
+/// with a fitted detector filter, say): `starts` turns the fit's own parameters (refitted
+/// without a 1/f term, as there) into one or more starting vectors of the alternative, each is
+/// refitted by at most `max_steps` scoring steps, and the best converged one counts (a cap
+/// keeps the cost down where the extra parameters run off to a boundary, as a filter's alpha
+/// does towards 1 on unfiltered data, and scoring never converges). Returns the gain and the
+/// alternative's parameters there; `None` when no start converges to a finite likelihood.
+pub fn likelihood_gain_from(
+    fit: &SpectrumFit,
+    periodogram: &Periodogram,
+    alternative: &SpectrumModel,
+    starts: &dyn Fn(&[f64]) -> Vec<Vec<f64>>,
+    max_steps: usize,
+) -> Option<(f64, Vec<f64>)> {
     let segments = Some(segments_of(periodogram));
     // Both models are compared without a 1/f drift term: when the fit kept one, its own model
     // is refitted without it first, so the two costs are of like models.
@@ -640,9 +664,19 @@ pub fn likelihood_gain(
     } else {
         fit.theta.clone()
     };
-    let (theta, _, converged) = fisher_scoring(&other, own_theta.clone(), 200);
-    let gain = 2.0 * (own.cost_at(&own_theta) - other.cost_at(&theta));
-    (converged && gain.is_finite()).then_some(gain)
+    let own_cost = own.cost_at(&own_theta);
+    let mut best: Option<(f64, Vec<f64>)> = None;
+    for start in starts(&own_theta) {
+        if start.len() != alternative.n_params() {
+            continue;
+        }
+        let (theta, _, converged) = fisher_scoring(&other, start, max_steps);
+        let gain = 2.0 * (own_cost - other.cost_at(&theta));
+        if converged && gain.is_finite() && best.as_ref().is_none_or(|(g, _)| gain > *g) {
+            best = Some((gain, theta));
+        }
+    }
+    best
 }
 
 /// Fisher scoring: theta <- theta + F^-1 g, halving the step until the likelihood improves.
