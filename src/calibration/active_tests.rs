@@ -279,55 +279,56 @@ fn with_a_wrong_diameter_active_stiffness_and_beta_stay_right_and_the_drag_ratio
 
 #[test]
 fn near_a_wall_the_drag_ratio_is_faxens_factor_and_the_finding_gives_the_height() {
-    // A 1 um bead with its centre 1.5 um above the surface: Faxen's lateral factor at
-    // R/h = 1/3 is about 1.23 (Faxen 1923, in Happel & Brenner). Records made with that drag,
+    // A 1 um bead with its centre 1.5 um and 3 um above the surface: Faxen's lateral factor
+    // (Faxen 1923, in Happel & Brenner) is about 1.23 and 1.10. Records made with that drag,
     // calibrated as if in bulk: the drag ratio must match the factor within its standard error
-    // (on the mean of 40 records, within 4 se of the mean); `drag-mismatch` must name a
-    // height on every record, and the height for the mean ratio must lie within 10 % of
-    // 1.5 um (a single record's ratio, 3 % uncertain, moves the height by about 15 %, as the
-    // wall factor changes slowly with the height).
+    // (on the mean of 40 records, within 4 se of the mean); `drag-mismatch` must name a height
+    // on every record at 1.5 um, and the height for the mean ratio must lie within 10 % (1.5
+    // um) or 20 % (3 um) of the truth: the wall factor changes slowly with the height, so the
+    // mean ratio's 0.55 % error moves the height by about 2.5 % at 1.5 um and 5.5 % at 3 um,
+    // and the bounds are four of those away. At 3 um a single record's ratio is only about
+    // three of its standard errors from 1, so the finding is not required there.
     let (fd, amplitude) = (32.3, 400.0);
-    let h = 1.5e-6;
-    let factor = drag::faxen_lateral_factor(0.5e-6, h).expect("factor");
-    let records = 40;
-    let (mut ratio, mut se2) = (0.0, 0.0);
-    for seed in 0..records {
-        let (x, _) = driven_nm(700 + seed, fd, amplitude, factor);
-        let cal = calibrate(
-            &volts(x),
-            &RunConditions::new(1.0e-6, 25.0),
-            &drive(fd, amplitude),
-        )
-        .expect("calibrates");
-        let axis = &cal.axes[0];
-        let act = axis.active.as_ref().expect("active");
-        ratio += act.drag_ratio.value / records as f64;
-        se2 += act.drag_ratio.se.powi(2) / (records * records) as f64;
-        let message = &axis
-            .findings
-            .iter()
-            .find(|f| f.code == "drag-mismatch")
-            .expect("drag-mismatch")
-            .message;
-        let height_um: f64 = message
-            .split("centre ")
-            .nth(1)
-            .and_then(|rest| rest.split(' ').next())
-            .and_then(|v| v.parse().ok())
-            .unwrap_or_else(|| panic!("no height in: {message}"));
-        assert!(height_um > 0.5, "{message}");
+    for (h, height_bound) in [(1.5e-6, 0.1), (3.0e-6, 0.2)] {
+        let factor = drag::faxen_lateral_factor(0.5e-6, h).expect("factor");
+        let records = 40;
+        let (mut ratio, mut se2) = (0.0, 0.0);
+        for seed in 0..records {
+            let (x, _) = driven_nm(700 + seed, fd, amplitude, factor);
+            let cal = calibrate(
+                &volts(x),
+                &RunConditions::new(1.0e-6, 25.0),
+                &drive(fd, amplitude),
+            )
+            .expect("calibrates");
+            let axis = &cal.axes[0];
+            let act = axis.active.as_ref().expect("active");
+            ratio += act.drag_ratio.value / records as f64;
+            se2 += act.drag_ratio.se.powi(2) / (records * records) as f64;
+            let mismatch = axis.findings.iter().find(|f| f.code == "drag-mismatch");
+            if h < 2e-6 {
+                let message = &mismatch.expect("drag-mismatch").message;
+                let height_um: f64 = message
+                    .split("centre ")
+                    .nth(1)
+                    .and_then(|rest| rest.split(' ').next())
+                    .and_then(|v| v.parse().ok())
+                    .unwrap_or_else(|| panic!("no height in: {message}"));
+                assert!(height_um > 0.5, "{message}");
+            }
+        }
+        assert!(
+            (ratio - factor).abs() < 4.0 * se2.sqrt(),
+            "h {h}: ratio {ratio} against Faxen {factor} (se of the mean {})",
+            se2.sqrt()
+        );
+        let height = crate::findings::height_for(drag::AxisOrientation::Lateral, 0.5e-6, ratio)
+            .expect("a height");
+        assert!(
+            (height / h - 1.0).abs() < height_bound,
+            "height {height} for ratio {ratio}, truth {h}"
+        );
     }
-    let height = crate::findings::height_for(drag::AxisOrientation::Lateral, 0.5e-6, ratio)
-        .expect("a height");
-    assert!(
-        (height / h - 1.0).abs() < 0.1,
-        "height {height} for ratio {ratio}"
-    );
-    assert!(
-        (ratio - factor).abs() < 4.0 * se2.sqrt(),
-        "ratio {ratio} against Faxen {factor} (se of the mean {})",
-        se2.sqrt()
-    );
 }
 
 #[test]
