@@ -4,6 +4,7 @@
 //! (`propagation`), the consensus, and the findings. Each stage takes and returns plain data, so
 //! each can be tested alone; this function only chains them.
 
+use super::allan::allan_stage;
 use super::conditions::{self, AxisDrag};
 use super::consensus;
 use super::covariance;
@@ -93,6 +94,8 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     if let Some(account) = drift_account.as_mut() {
         drift::correct_variance(&mut time, account);
     }
+    // The Allan deviation of the same record against the fitted model (a diagnostic).
+    let allan = allan_stage(time_samples, sample_rate_hz, spectral.fit.as_ref().ok());
     let drift_shifts = drift_account
         .as_ref()
         .map(|a| drift::shifts(a, &spectral, &time))
@@ -180,8 +183,16 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
                 &propagated,
             ))
         }))
+        .chain(allan.expected.as_ref().and_then(|e| {
+            findings::drift_dominates(
+                name,
+                unit,
+                e.drift_onset_s,
+                samples.len() as f64 / sample_rate_hz,
+            )
+        }))
         .collect();
-    Ok(assemble(
+    let mut axis = assemble(
         name,
         noise_floor,
         drag,
@@ -193,7 +204,9 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         findings,
         failures,
         sample_rate_hz,
-    ))
+    );
+    axis.allan = allan;
+    Ok(axis)
 }
 
 /// The white noise floor's test, level and share of the measured variance.
@@ -591,5 +604,6 @@ fn assemble(
         includes_input_errors: drag.includes_input_errors,
         sample_rate_hz,
         lines_removed: spectral.lines.removed,
+        allan: crate::allan::AllanCurve::default(),
     }
 }

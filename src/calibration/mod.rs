@@ -6,6 +6,7 @@
 //! pN s/nm) in its field names, converted here once. For nanometre data the signal unit is the
 //! nanometre; for volt data it is the volt.
 
+mod allan;
 mod axis;
 #[cfg(test)]
 mod camera_blur_tests;
@@ -320,6 +321,9 @@ pub struct AxisCalibration {
     pub n_windows: usize,
     /// Sinusoids fitted and subtracted before the autocorrelation and equipartition methods.
     pub lines_removed: Vec<spectrum::SpectralLine>,
+    /// The Allan deviation of the record the time-domain methods see, with the curve and band
+    /// of the fitted spectral model when the fit exists (a diagnostic, see `crate::allan`).
+    pub allan: crate::allan::AllanCurve,
 }
 
 /// The zero-lag correlation of two axes as calibrated, and what it says about the trap's
