@@ -787,7 +787,7 @@ pub fn drift_dominates(
         "drift-dominates",
         Severity::Warning,
         format!(
-            "axis `{axis}`: from an averaging time of {onset:.3e} s up to the longest measured (a third of the {record_s:.3e} s record), the Allan deviation of the position ({unit}) stays above the band the fitted model of the trapped bead's motion allows (central 99.5 %): drift, not the trap, dominates the position on those time scales. Averaging the position for longer than that does not make it more precise; reduce the drift at its source (stage, temperature, laser pointing) or keep measurements shorter"
+            "axis `{axis}`: from an averaging time of {onset:.3e} s up to the longest measured (a third of the {record_s:.3e} s record), the Allan deviation of the position ({unit}) stays above the band the fitted model of the trapped bead's motion allows (central 99.8 %): drift, not the trap, dominates the position on those time scales. Averaging the position for longer than that does not make it more precise; reduce the drift at its source (stage, temperature, laser pointing) or keep measurements shorter"
         ),
     ))
 }

@@ -7,6 +7,8 @@
 //! nanometre; for volt data it is the volt.
 
 mod allan;
+#[cfg(test)]
+mod allan_tests;
 mod axis;
 #[cfg(test)]
 mod camera_blur_tests;
