@@ -505,6 +505,15 @@ for (const card of document.querySelectorAll('#view-result .axis-card')) {
       expected: curve(fig('histogram'), 'expected'),
       labels: labels('histogram'),
     },
+    allan: fig('allan') ? {
+      data: [...fig('allan').querySelectorAll('circle[data-series="data"]')]
+        .map((c) => [c.dataset.tau, c.dataset.value]),
+      expected: curve(fig('allan'), 'expected'),
+      band: count(fig('allan'), 'polygon[data-series="spread"]'),
+      onset_line: [...fig('allan').querySelectorAll('[data-series="drift-onset"]')].map((l) => l.dataset.value),
+      onset: fig('allan').querySelector('[data-quantity="drift-onset"]').dataset.value,
+      labels: labels('allan'),
+    } : null,
     stiffness: {
       estimates: [...fig('stiffness').querySelectorAll('circle[data-series="estimate"]')]
         .map((c) => [c.dataset.method, c.dataset.value]),
@@ -627,6 +636,7 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
             &s["histogram"]["expected"],
             drawable(&h["centre"], &h["expected"], false, false),
         );
+        check_allan(&what("allan"), &s["allan"], &axis["allan"], unit);
         let estimates = &s["stiffness"]["estimates"];
         for (i, method) in ["psd", "acf", "equipartition"].iter().enumerate() {
             assert_eq!(estimates[i][0], *method);
@@ -659,6 +669,53 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
     assert_eq!(shown["links"]["recording"], doc["links"]["recording"]);
     assert_eq!(shown["links"]["json"], doc["links"]["self"]);
     assert_eq!(shown["links"]["plots"], doc["links"]["plots"]);
+}
+
+/// The Allan deviation figure against the axis's `allan` member: every measured point with the
+/// API's exact averaging time and deviation, the expected curve's points, the band, and the
+/// drift onset (a line at its exact value, or none).
+#[track_caller]
+fn check_allan(what: &str, shown: &Value, api: &Value, unit: &str) {
+    assert!(shown.is_object(), "{what}: no figure");
+    assert_eq!(api["unit"], unit, "{what}: unit");
+    let taus = api["tau_s"].as_array().expect("tau_s");
+    let deviation = api["deviation"].as_array().expect("deviation");
+    assert!(taus.len() >= 10, "{what}: {} averaging times", taus.len());
+    let points = shown["data"].as_array().expect("points");
+    assert_eq!(
+        points.len(),
+        drawable(&api["tau_s"], &api["deviation"], true, true)
+    );
+    for ((p, t), d) in points.iter().zip(taus).zip(deviation) {
+        assert_eq!(f64_of(&p[0], what), f64_of(t, what), "{what}: tau");
+        assert_eq!(f64_of(&p[1], what), f64_of(d, what), "{what}: deviation");
+    }
+    check_count(
+        &format!("{what} expected"),
+        &shown["expected"],
+        drawable(&api["tau_s"], &api["expected"], true, true),
+    );
+    check_count(
+        &format!("{what} band"),
+        &shown["band"],
+        usize::from(api["expected_high"].is_array()),
+    );
+    match api["drift_onset_s"].as_f64() {
+        Some(onset) => {
+            assert_eq!(f64_of(&shown["onset"], what), onset, "{what}: onset");
+            assert_eq!(shown["onset_line"].as_array().map(Vec::len), Some(1));
+            assert_eq!(f64_of(&shown["onset_line"][0], what), onset);
+        }
+        None => {
+            assert_eq!(shown["onset"], "", "{what}: onset shown without one");
+            assert_eq!(shown["onset_line"].as_array().map(Vec::len), Some(0));
+        }
+    }
+    let label = shown["labels"][1].as_str().unwrap_or("");
+    assert!(
+        label.contains(&format!("({unit})")),
+        "{what}: y label `{label}`"
+    );
 }
 
 /// Watches the progress box during an upload and records what it showed.
