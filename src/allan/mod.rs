@@ -166,7 +166,10 @@ impl LagSums {
     fn h(&self, t: i64) -> f64 {
         if t < 0 {
             let s = t.unsigned_abs();
-            return self.h_non_negative(s + 2) - self.h_non_negative(2) - s as f64 * self.c0;
+            return (s as f64).mul_add(
+                -self.c0,
+                self.h_non_negative(s + 2) - self.h_non_negative(2),
+            );
         }
         self.h_non_negative(t.unsigned_abs())
     }
@@ -175,7 +178,7 @@ impl LagSums {
         let last = self.h.len() - 1;
         match usize::try_from(t) {
             Ok(t) if t <= last => self.h[t],
-            _ => (t - last as u64) as f64 * self.g_end + self.h[last],
+            _ => ((t - last as u64) as f64).mul_add(self.g_end, self.h[last]),
         }
     }
 
@@ -183,7 +186,7 @@ impl LagSums {
     /// blocks l samples apart, signal-unit^2.
     fn block_covariance(&self, l: i64, m: i64) -> f64 {
         let l = l.abs();
-        self.h(l + m + 1) - 2.0 * self.h(l + 1) + self.h(l - m + 1)
+        2.0f64.mul_add(-self.h(l + 1), self.h(l + m + 1)) + self.h(l - m + 1)
     }
 }
 
@@ -208,10 +211,10 @@ fn estimator_variance(sums: &LagSums, m: usize, n_samples: usize, correlation_la
     let mi = m as i64;
     let mf = m as f64;
     let r_d = |k: i64| {
-        (2.0 * sums.block_covariance(k, mi)
-            - sums.block_covariance(k + mi, mi)
-            - sums.block_covariance(k - mi, mi))
-            / (mf * mf)
+        2.0f64.mul_add(
+            sums.block_covariance(k, mi),
+            -sums.block_covariance(k + mi, mi) - sums.block_covariance(k - mi, mi),
+        ) / (mf * mf)
     };
     let last = (n - 1).min(2 * m + correlation_lags);
     let nf = n as f64;

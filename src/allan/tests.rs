@@ -37,7 +37,7 @@ fn expected_curve_of_ou_motion_equals_the_closed_form() {
     // (dt/tau = 2); m up to 2^17. Tolerance 1e-9 relative: the closed form's own cancellation
     // at m = 1 is near 1e-13 and the lag sums' rounding below 1e-11.
     for dt_over_tau in [0.16, 0.005, 2.0] {
-        let c = (-dt_over_tau as f64).exp();
+        let c = f64::exp(-dt_over_tau);
         let lags = ou_lags(2.5, c);
         for m in octave_block_sizes(3 << 17) {
             let got = expected_allan_variance(&lags, m);
@@ -58,7 +58,8 @@ fn ou_curve_has_the_published_limits_and_maximum() {
     let c = (-0.16f64).exp();
     let lags = ou_lags(1.0, c);
     let x: f64 = 0.16;
-    let continuous = (2.0 * x - 3.0 + 4.0 * (-x).exp() - (-2.0 * x).exp()) / (x * x);
+    let continuous =
+        (4.0f64.mul_add((-x).exp(), 2.0f64.mul_add(x, -3.0)) - (-2.0 * x).exp()) / (x * x);
     let ratio = expected_allan_variance(&lags, 1) / continuous;
     assert!((ratio - 1.56).abs() < 0.01, "{ratio}");
     let m = 1 << 16;
@@ -101,7 +102,7 @@ fn frequency_integral(model: &SpectrumModel, theta: &[f64], m: usize) -> f64 {
     for p in 0..panels {
         let mid = (p as f64 + 0.5) * width;
         for &(x, w) in &nodes {
-            let f = mid + 0.5 * width * x;
+            let f = (0.5 * width).mul_add(x, mid);
             let s = (PI * f * dt).sin();
             let sm = (PI * f * m as f64 * dt).sin();
             let gain = 2.0 * sm.powi(4) / ((m * m) as f64 * s * s);
@@ -110,6 +111,14 @@ fn frequency_integral(model: &SpectrumModel, theta: &[f64], m: usize) -> f64 {
     }
     total
 }
+
+/// A model's filter, drag and exposure, and the relative tolerance for it.
+type Case = (
+    Option<crate::spectrum::DetectorFilter>,
+    Option<HydroTerms>,
+    Option<f64>,
+    f64,
+);
 
 #[test]
 fn expected_curve_equals_the_allan_filter_applied_to_the_model_spectrum() {
@@ -131,12 +140,7 @@ fn expected_curve_equals_the_allan_filter_applied_to_the_model_spectrum() {
         f3db_hz: 9_000.0,
         alpha: 0.3,
     };
-    let cases: [(
-        Option<crate::spectrum::DetectorFilter>,
-        Option<HydroTerms>,
-        Option<f64>,
-        f64,
-    ); 4] = [
+    let cases: [Case; 4] = [
         (None, None, None, 1e-10),
         (Some(filter), None, None, 1e-10),
         (None, None, Some(1.0 / fs), 1e-10),

@@ -31,12 +31,13 @@ impl TimeDomainModel {
         diffusion: f64,
         n_lags: usize,
     ) -> Vec<f64> {
-        if self.validate().is_err()
-            || !(corner_frequency_hz > 0.0 && diffusion > 0.0)
-            || !corner_frequency_hz.is_finite()
-            || !diffusion.is_finite()
-            || n_lags == 0
-        {
+        let usable = self.validate().is_ok()
+            && corner_frequency_hz > 0.0
+            && diffusion > 0.0
+            && corner_frequency_hz.is_finite()
+            && diffusion.is_finite()
+            && n_lags > 0;
+        if !usable {
             return Vec::new();
         }
         let exact = EXACT_LAGS.min(n_lags);
