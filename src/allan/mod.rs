@@ -12,12 +12,12 @@
 //! The model's side works from its autocovariance C(k) at whole lags, given as a slice (lags
 //! beyond it are zero): for a stationary process with block-sum covariance
 //! V(l) = Cov(B_i, B_(i+l)) = sum_(|r|<m) (m - |r|) C(l + r),
-//! E[AV(tau)] = (V(0) - V(m)) / m^2 (derived here: E d_i^2 = 2 (V(0) - V(m)) / m^2), and the
+//! E(AV(tau)) = (V(0) - V(m)) / m^2 (derived here: E d_i^2 = 2 (V(0) - V(m)) / m^2), and the
 //! autocovariance of the differences is R_D(k) = (2 V(k) - V(k + m) - V(k - m)) / m^2. For a
 //! Gaussian process the estimator's variance is
 //! Var(AV) = (1 / 2 n^2) sum_(|k|<n) (n - |k|) R_D(k)^2 (Isserlis: Cov(d_i^2, d_j^2) =
 //! 2 R_D(i - j)^2), and the band is that of a chi-square with the equivalent degrees of freedom
-//! edf = 2 E[AV]^2 / Var(AV) (Satterthwaite's approximation, the chi-square confidence interval
+//! edf = 2 E(AV)^2 / Var(AV) (Satterthwaite's approximation, the chi-square confidence interval
 //! of Riley 2008 with the degrees of freedom computed for this spectrum instead of taken from
 //! the power-law noise tables, which the trapped bead's motion does not follow).
 //!
@@ -60,7 +60,7 @@ pub struct AllanCurve {
 /// The model's Allan deviation with the band of the overlapping estimator around it.
 #[derive(Clone, Debug, PartialEq)]
 pub struct ExpectedAllan {
-    /// sqrt(E[AV]), signal unit.
+    /// sqrt(E(AV)), signal unit.
     pub deviation: Vec<f64>,
     /// The band's lower and upper edges (`BAND_PROBABILITIES` quantiles of the estimated
     /// deviation), signal unit.
