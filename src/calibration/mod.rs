@@ -97,8 +97,9 @@ impl RunConditions {
 /// a retried upload never returns a result computed under older models.
 ///
 /// 1: until frequency-dependent drag became the default of the run settings;
-/// 2: frequency-dependent drag on by default (`hydrodynamics`), bead material, medium density.
-pub const MODEL_VERSION: u32 = 2;
+/// 2: frequency-dependent drag on by default (`hydrodynamics`), bead material, medium density;
+/// 3: the Allan deviation of every axis (`allan`) and its `drift-dominates` finding.
+pub const MODEL_VERSION: u32 = 3;
 
 /// How the record is analysed.
 #[derive(Clone, Debug)]

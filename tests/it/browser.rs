@@ -1093,6 +1093,61 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     browser.screenshot("result-volts-tablet", false).await;
     browser.viewport(LAPTOP).await;
 
+    // A record with a linear drift of 20 nm/s (the thermal motion's sd is about 9 nm), uploaded
+    // through the API: the Allan figure marks the drift onset at the API's exact value.
+    let drifting = dir.path().join("drifting.csv");
+    let output = binary()
+        .arg("simulate")
+        .arg("-o")
+        .arg(&drifting)
+        .args(["--sample-rate", "20000", "--duration", "2"])
+        .args(["--stiffness", "0.05", "--seed", "44", "--drift", "20"])
+        .output()
+        .expect("run trapwise simulate");
+    assert!(
+        output.status.success(),
+        "{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    let fields: Vec<(String, String)> = [("bead_diameter_um", "1"), ("temperature_c", "25")]
+        .iter()
+        .map(|(k, v)| (k.to_string(), v.to_string()))
+        .collect();
+    let (status, doc) = api_upload(
+        &server,
+        &fields,
+        Some(("drifting.csv", std::fs::read(&drifting).expect("read"))),
+    )
+    .await;
+    assert_eq!(status, 201, "{doc}");
+    let id3 = doc["id"].as_str().expect("id").to_string();
+    browser
+        .goto(&server.url(&format!("/#/calibrations/{id3}")))
+        .await;
+    browser
+        .wait_for(
+            "the drifting result",
+            &RESULT_ID.replace("return m &&", &format!("return m && m[1] === '{id3}' &&")),
+        )
+        .await;
+    let doc = api_json(&server, &format!("/api/v1/calibrations/{id3}")).await;
+    let plots = api_json(&server, &format!("/api/v1/calibrations/{id3}/plots")).await;
+    let shown = browser.js(READ_RESULT, vec![]).await;
+    check_result_view(&shown, &doc, &plots);
+    let onset = doc["result"]["axes"][0]["allan"]["drift_onset_s"].as_f64();
+    assert!(
+        onset.is_some(),
+        "no drift onset: {}",
+        doc["result"]["axes"][0]["allan"]
+    );
+    browser
+        .js(
+            "document.querySelector('#view-result figure[data-plot=allan]').scrollIntoView();",
+            vec![],
+        )
+        .await;
+    browser.screenshot("result-drift-allan", false).await;
+
     // 3. The fields remember their last values across a reload.
     browser.goto(&server.url("/#/")).await;
     browser.client.refresh().await.expect("reload");
