@@ -22,3 +22,10 @@ tw=(cargo run --quiet --release --)
 "${tw[@]}" simulate -o kittiwake-trap1-fast.f32 --units V --sensitivity 620 --axes x,y \
   --stiffness 0.15,0.12 --bead-diameter 2.0 --temperature 22 --sample-rate 100000 --duration 2 \
   --seed 14 --detector-filter 7000:0.3 --hydrodynamics
+# Instrument "kittiwake", trap 2: a photodiode in volts (540 nm/V) with the sample stage driven at
+# 32.3 Hz, 200 nm, for active calibration, the 1 um bead's centre 2 um above the coverslip (drag
+# 1.16 times the bulk value by Faxen's law). The simulator has no frequency-dependent form of the
+# drag near a wall, so this file has none (calibrate it with --hydrodynamics off).
+"${tw[@]}" simulate -o kittiwake-trap2-driven.f32 --units V --sensitivity 540 --stiffness 0.070 \
+  --bead-diameter 1.0 --temperature 22 --height 2.0 --sample-rate 50000 --duration 4 --seed 15 \
+  --drive-frequency 32.3 --drive-amplitude 200

@@ -2,6 +2,9 @@
 //! never an error: a recording with findings still gets its numbers, and the findings say how
 //! far to trust them.
 
+mod drive;
+pub use drive::{DRAG_MISMATCH_Z, DriveEvidence, drive, height_for};
+
 use crate::drag;
 use crate::estimate::Estimate;
 use crate::recording::PositionUnit;

@@ -953,6 +953,17 @@ function findingsList(findings) {
   }));
 }
 
+/** The numbers of an active calibration (a stage drive), when the axis has one. */
+function activeItems(active) {
+  if (!active) return [];
+  return [
+    numberItem("drive-drag", "Drag measured by the stage drive", active.drag_pn_s_per_nm, "pN·s/nm"),
+    numberItem("drive-drag-ratio", "Measured / assumed drag", active.drag_ratio, "×"),
+    active.scale_factor ? numberItem("drive-scale-factor", "Scale factor (true nm per recorded nm)", active.scale_factor, "×") : null,
+    numberItem("drive-stiffness", "Stiffness κ (spectral, measured drag)", active.stiffness_pn_per_nm, "pN/nm"),
+  ];
+}
+
 function axisCard(axis, report, plotsOfAxis) {
   const unit = report.input.unit;
   const s = axis.stiffness_pn_per_nm;
@@ -961,6 +972,7 @@ function axisCard(axis, report, plotsOfAxis) {
     axis.sensitivity_nm_per_v ? numberItem("sensitivity", "Sensitivity β", axis.sensitivity_nm_per_v, "nm/V") : null,
     numberItem("corner-frequency", "Corner frequency fc", axis.corner_frequency_hz, "Hz"),
     numberItem("relaxation-time", "Relaxation time τ", axis.relaxation_time_s, "ms", 1e3),
+    ...activeItems(axis.active),
   ];
   const reasons = axis.verdict_reasons.length
     ? el("ul", { class: "reasons" }, axis.verdict_reasons.map((r) => el("li", { text: r })))

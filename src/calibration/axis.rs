@@ -4,8 +4,9 @@
 //! (`propagation`), the consensus, and the findings. Each stage takes and returns plain data, so
 //! each can be tested alone; this function only chains them.
 
+use super::active::{self, ActiveCalibration, ActiveInputs, Drive};
 use super::allan::allan_stage;
-use super::conditions::{self, AxisDrag};
+use super::conditions::{self, AxisDrag, DragSource};
 use super::consensus;
 use super::covariance;
 use super::drift;
@@ -32,6 +33,17 @@ pub(crate) struct AxisInput<'a> {
     pub(crate) conditions: &'a RunConditions,
     pub(crate) physics: &'a Physics,
     pub(crate) options: &'a AnalysisOptions,
+    /// The stage drive, when this axis is the driven one.
+    pub(crate) drive: Option<&'a Drive>,
+    /// The measured drag of the driven axis, when this axis takes it (`Drive::drag_to`).
+    pub(crate) shared_drag: Option<SharedDrag>,
+}
+
+/// A drag measured on another axis of the same bead, as an input of this one.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(crate) struct SharedDrag {
+    /// kg/s with its standard error (which holds the temperature's share).
+    pub(crate) drag_kg_per_s: Estimate,
 }
 
 /// Calibrates one axis by chaining the stages. A method that fails leaves the others standing
@@ -46,13 +58,56 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         conditions,
         physics,
         options,
+        drive,
+        shared_drag,
     } = *input;
     let orientation = conditions::orientation_of(name, &options.axial_axes);
-    let drag = conditions::axis_drag_stage(orientation, conditions, physics)?;
+    let mut drag = conditions::axis_drag_stage(orientation, conditions, physics)?;
+    if let Some(shared) = shared_drag {
+        take_shared_drag(&mut drag, shared);
+    }
     let samples = prepared_samples(name, raw_samples, options.detrend)?;
+    // The drive's spike is fitted at its known frequency and subtracted before any passive
+    // method sees the record (see `active`).
+    let (samples, drive_line) = match drive {
+        Some(d) => {
+            let (cleaned, line) = active::remove_drive(&samples, sample_rate_hz, d.frequency_hz);
+            (Cow::Owned(cleaned), Some(line))
+        }
+        None => (samples, None),
+    };
 
     let model = spectral::spectrum_model(sample_rate_hz, conditions, physics, options);
-    let spectral = spectral::spectral_stage(name, &samples, model, options)?;
+    let mut spectral = spectral::spectral_stage(
+        name,
+        &samples,
+        model,
+        options,
+        drive.map(|d| d.frequency_hz),
+    )?;
+    let active = match (drive, drive_line.as_ref(), spectral.fit.as_ref()) {
+        (Some(drive), Some(line), Ok(fit)) => active::active_stage(&ActiveInputs {
+            drive,
+            line,
+            n_samples: samples.len(),
+            sample_rate_hz,
+            fit,
+            thermal_energy_j: physics.thermal_energy_j,
+            var_ln_t: drag.var_ln_t,
+            assumed_drag_kg_per_s: drag.drag_kg_per_s.value,
+            var_ln_assumed: drag.var_ln_gamma,
+            cov_ln_assumed_ln_t: drag.cov_ln_gamma_ln_t,
+            bulk_drag_kg_per_s: physics.stokes_drag_kg_per_s.value,
+        }),
+        _ => None,
+    };
+    if let Some(stage) = active.as_ref() {
+        drag.drag_kg_per_s = stage.summary.drag_kg_per_s;
+        drag.source = DragSource::Measured;
+    }
+    if let Some(line) = drive_line {
+        spectral.lines.removed.insert(0, line);
+    }
 
     // The lines were taken out of the record before the periodogram; the time-domain methods
     // see the same cleaned record. Removing a line can leave a trace of a trend, so the cleaned
@@ -101,14 +156,15 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         .map(|a| drift::shifts(a, &spectral, &time))
         .unwrap_or_default();
 
-    let propagated = propagation::propagate(&propagation_inputs(
-        &spectral,
-        &time,
-        &drag,
-        physics,
-        unit,
-        sample_rate_hz,
-    ));
+    let propagated = propagation::propagate(&PropagationInputs {
+        measured_drag: active.as_ref().map(|a| a.terms),
+        ..propagation_inputs(&spectral, &time, &drag, physics, unit, sample_rate_hz)
+    });
+    let active_terms = active.as_ref().map(|a| a.terms);
+    let active = active.map(|stage| ActiveCalibration {
+        stiffness_pn_per_nm: propagated.stiffness[0],
+        ..stage.summary
+    });
     let failures = failures(&spectral, &time);
     if propagated.stiffness.iter().all(Option::is_none) {
         // Nothing stands: the first failure, in the order the methods ran, is the error.
@@ -183,6 +239,34 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
                 &propagated,
             ))
         }))
+        .chain(
+            drive
+                .zip(active.as_ref())
+                .zip(active_terms)
+                .and_then(|((drive, act), terms)| {
+                    let stiffness = act.stiffness_pn_per_nm?;
+                    let amplitude_relative_variance =
+                        4.0 * (drive.amplitude_se_m / drive.amplitude_m).powi(2);
+                    Some(findings::drive(&findings::DriveEvidence {
+                        axis: name,
+                        orientation,
+                        drag_ratio: act.drag_ratio,
+                        drag_over_bulk: act.drag_over_bulk,
+                        radius_m: conditions.bead_diameter_m / 2.0,
+                        viscosity_pa_s: physics.viscosity_pa_s,
+                        height_m: conditions.height_m,
+                        stiffness,
+                        target_relative_precision: options.target_relative_precision,
+                        spike_noise_relative_variance: terms.spike_log_variance
+                            - amplitude_relative_variance,
+                        amplitude_relative_variance,
+                        amplitude_m: drive.amplitude_m,
+                        record_length_s: samples.len() as f64 / sample_rate_hz,
+                    }))
+                })
+                .into_iter()
+                .flatten(),
+        )
         .chain(allan.expected.as_ref().and_then(|e| {
             findings::drift_dominates(
                 name,
@@ -195,6 +279,7 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     let mut axis = assemble(
         name,
         noise_floor,
+        active,
         drag,
         d_theory,
         spectral,
@@ -207,6 +292,17 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     );
     axis.allan = allan;
     Ok(axis)
+}
+
+/// The drag measured on the driven axis replaces this axis's assumed drag: its error, which
+/// holds the temperature's share through kB T, becomes the input error of ln gamma, and the
+/// temperature's correlation with it is that of ln T with itself.
+fn take_shared_drag(drag: &mut AxisDrag, shared: SharedDrag) {
+    drag.drag_kg_per_s = shared.drag_kg_per_s;
+    drag.var_ln_gamma = shared.drag_kg_per_s.relative_se().powi(2);
+    drag.cov_ln_gamma_ln_t = drag.var_ln_t;
+    drag.source = DragSource::Measured;
+    drag.includes_input_errors = true;
 }
 
 /// The white noise floor's test, level and share of the measured variance.
@@ -361,6 +457,7 @@ fn propagation_inputs(
             PositionUnit::Nanometre => Some(1e-9),
             PositionUnit::Volt => None,
         },
+        measured_drag: None,
     }
 }
 
@@ -559,6 +656,7 @@ fn disagreements(
 fn assemble(
     name: &str,
     noise_floor: Option<NoiseFloorSummary>,
+    active: Option<ActiveCalibration>,
     drag: AxisDrag,
     diffusion_theory_m2_per_s: f64,
     spectral: SpectralStage,
@@ -601,6 +699,8 @@ fn assemble(
         peaks: spectral.peaks,
         histogram: time.histogram,
         failures,
+        drag_source: drag.source,
+        active,
         includes_input_errors: drag.includes_input_errors,
         sample_rate_hz,
         lines_removed: spectral.lines.removed,

@@ -23,6 +23,27 @@ pub(crate) struct AxisDrag {
     pub(crate) var_ln_t: f64,
     /// Whether any input standard error was given.
     pub(crate) includes_input_errors: bool,
+    /// Whether the drag comes from the run conditions or from a stage drive.
+    pub(crate) source: DragSource,
+}
+
+/// Where an axis's drag comes from.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum DragSource {
+    /// From the bead diameter, the viscosity and the height (Stokes with wall factors).
+    Assumed,
+    /// From the spike of a stage drive (`active`), on this axis or shared from the driven one.
+    Measured,
+}
+
+impl DragSource {
+    /// The wire name.
+    pub fn name(self) -> &'static str {
+        match self {
+            DragSource::Assumed => "assumed",
+            DragSource::Measured => "measured",
+        }
+    }
 }
 
 /// Whether an axis of this name moves perpendicular to the surface.
@@ -62,6 +83,7 @@ pub(crate) fn axis_drag_stage(
         cov_ln_gamma_ln_t: dln_gamma[1] * dln_t * conditions.temperature_se_c.powi(2),
         var_ln_t: (dln_t * conditions.temperature_se_c).powi(2),
         includes_input_errors: input_se.iter().any(|s| *s > 0.0),
+        source: DragSource::Assumed,
     })
 }
 

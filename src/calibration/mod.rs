@@ -6,6 +6,9 @@
 //! pN s/nm) in its field names, converted here once. For nanometre data the signal unit is the
 //! nanometre; for volt data it is the volt.
 
+mod active;
+#[cfg(test)]
+mod active_tests;
 mod allan;
 #[cfg(test)]
 mod allan_tests;
@@ -38,6 +41,8 @@ mod synthetic_records;
 mod tests;
 mod time_domain;
 
+pub use active::{ActiveCalibration, Drive, response_power};
+pub use conditions::DragSource;
 pub use consensus::{Combined, Discrepancy, METHODS, Verdict, Z_LIMIT};
 
 use crate::autocorrelation::{AcfError, AcfFitOptions, ExponentialFit};
@@ -137,6 +142,9 @@ pub struct AnalysisOptions {
     /// Whether the white noise floor enters the spectral model (default: when a
     /// likelihood-ratio test says the data support it, see `spectrum::fit_spectrum_with_floor`).
     pub noise_floor: NoiseFloorMode,
+    /// The sample stage's sinusoidal drive during the recording, for active calibration
+    /// (`active`); `None` for a passive recording.
+    pub drive: Option<Drive>,
 }
 
 impl Default for AnalysisOptions {
@@ -154,6 +162,7 @@ impl Default for AnalysisOptions {
             axial_axes: vec!["z".to_string()],
             principal_axes: false,
             noise_floor: NoiseFloorMode::Auto,
+            drive: None,
         }
     }
 }
@@ -223,6 +232,9 @@ pub enum CalibrationError {
     /// The setting `principal_axes` cannot apply to this recording.
     #[error("setting `principal_axes`: {reason}")]
     PrincipalAxes { reason: String },
+    /// The stage drive cannot apply to this recording (`field` names the setting).
+    #[error("setting `{field}`: {reason}")]
+    InvalidDrive { field: &'static str, reason: String },
 }
 
 /// Quantities derived from the run conditions.
@@ -315,6 +327,11 @@ pub struct AxisCalibration {
     pub histogram: Option<Histogram>,
     /// Methods that failed on this axis, with the error; the others stand without them.
     pub failures: Vec<MethodFailure>,
+    /// Where `drag_kg_per_s` comes from: the run conditions, or a stage drive.
+    pub drag_source: DragSource,
+    /// The active calibration, when the stage drove this axis and its spike stood above the
+    /// background.
+    pub active: Option<ActiveCalibration>,
     /// Whether the errors include the run conditions' uncertainties.
     pub includes_input_errors: bool,
     /// Sampling rate, Hz, and the periodogram's frequency resolution, Hz.
@@ -486,7 +503,8 @@ pub fn calibrate(
     }
     let physics = physics(conditions)?;
     let (traces, rotation) = coupling::axes_to_calibrate(recording, options)?;
-    let one_axis = |axis: &crate::recording::AxisTrace| {
+    let driven = active::driven_axis(&traces, recording.sample_rate_hz, options)?;
+    let one_axis = |axis: &crate::recording::AxisTrace, shared_drag: Option<axis::SharedDrag>| {
         axis::calibrate_axis(&axis::AxisInput {
             name: &axis.name,
             samples: &axis.samples,
@@ -495,27 +513,66 @@ pub fn calibrate(
             conditions,
             physics: &physics,
             options,
+            drive: options
+                .drive
+                .as_ref()
+                .filter(|_| driven.is_some_and(|i| traces[i].name == axis.name)),
+            shared_drag,
         })
     };
+    // An axis that takes the driven axis's measured drag waits for it; the rest are
+    // independent.
+    let mut results: Vec<Option<Result<AxisCalibration, CalibrationError>>> =
+        traces.iter().map(|_| None).collect();
+    let mut shared = None;
+    if let Some(i) = driven.filter(|_| {
+        options
+            .drive
+            .as_ref()
+            .is_some_and(|d| !d.drag_to.is_empty())
+    }) {
+        let result = one_axis(&traces[i], None);
+        shared = result.as_ref().ok().and_then(|a| {
+            a.active.as_ref().map(|act| axis::SharedDrag {
+                drag_kg_per_s: act.drag_kg_per_s,
+            })
+        });
+        results[i] = Some(result);
+    }
+    let takes_shared = |name: &str| {
+        options
+            .drive
+            .as_ref()
+            .is_some_and(|d| d.drag_to.iter().any(|a| a == name))
+    };
+    let pending: Vec<usize> = (0..traces.len())
+        .filter(|&i| results[i].is_none())
+        .collect();
+    let run = |i: usize| one_axis(&traces[i], shared.filter(|_| takes_shared(&traces[i].name)));
     // The axes are independent: each runs on its own scoped thread (the first here), and the
     // results are taken in axis order, so the first failing axis is reported as in one pass.
-    let mut axes = match traces.split_first() {
-        Some((first, rest)) if !rest.is_empty() => std::thread::scope(|scope| {
+    match pending.split_first() {
+        Some((&first, rest)) if !rest.is_empty() => std::thread::scope(|scope| {
             let others: Vec<_> = rest
                 .iter()
-                .map(|axis| scope.spawn(move || one_axis(axis)))
+                .map(|&i| (i, scope.spawn(move || run(i))))
                 .collect();
-            let mut results = vec![one_axis(first)];
-            for (axis, handle) in rest.iter().zip(others) {
+            results[first] = Some(run(first));
+            for (i, handle) in others {
                 // A panicking axis is a bug; computing it again here surfaces it on this thread.
-                results.push(handle.join().unwrap_or_else(|_| one_axis(axis)));
+                results[i] = Some(handle.join().unwrap_or_else(|_| run(i)));
             }
-            results
         }),
-        _ => traces.iter().map(one_axis).collect(),
+        _ => {
+            for &i in &pending {
+                results[i] = Some(run(i));
+            }
+        }
     }
-    .into_iter()
-    .collect::<Result<Vec<_>, _>>()?;
+    let mut axes = results
+        .into_iter()
+        .flatten()
+        .collect::<Result<Vec<_>, _>>()?;
     let lines: Vec<&[spectrum::SpectralLine]> =
         axes.iter().map(|a| a.lines_removed.as_slice()).collect();
     let coupling = coupling::measure(

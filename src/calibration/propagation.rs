@@ -7,6 +7,7 @@
 //! covariance follows by the usual propagation of errors (e.g. JCGM 100:2008, the Guide to the
 //! Expression of Uncertainty in Measurement, section 5.2 on correlated input quantities).
 
+use super::active::MeasuredDragTerms;
 use crate::estimate::Estimate;
 use std::f64::consts::PI;
 
@@ -34,6 +35,11 @@ pub(crate) struct PropagationInputs {
     /// Metres per signal unit when the record is in a length unit (1e-9 for nm); `None` for
     /// volts, whose scale is the sensitivity from the spectral fit.
     pub(crate) metres_per_unit: Option<f64>,
+    /// With a stage drive on this axis, `drag_kg_per_s` is the measured drag
+    /// kB T W_ex / (W_th(fc) D): ln gamma is then no input of its own but
+    /// ln T + ln W_ex - 2 ln A - g ln fc - ln D, and these are its terms (see `active`). The
+    /// input variance of ln gamma is ignored.
+    pub(crate) measured_drag: Option<MeasuredDragTerms>,
 }
 
 /// The three stiffness estimates (pN/nm) with their covariance, and beta (nm/V) for volts. A
@@ -77,11 +83,26 @@ fn log_covariance(inp: &PropagationInputs) -> [[f64; 4]; 4] {
         inp.variance,
     ]
     .map(|e| e.map_or(0.0, |e| e.relative_se()));
-    let rows = log_rows(inp.metres_per_unit.is_none());
+    let mut rows = log_rows(inp.metres_per_unit.is_none());
+    let mut input_covariance = inp.input_covariance;
+    // The spike's own term, independent of everything else.
+    let mut spike = [0.0f64; 4];
+    if let Some(m) = inp.measured_drag {
+        for (row, spike) in rows.iter_mut().zip(spike.iter_mut()) {
+            let c_gamma = row[4];
+            row[0] -= m.d_ln_expected_d_ln_fc * c_gamma;
+            row[1] -= c_gamma;
+            row[5] += c_gamma;
+            row[4] = 0.0;
+            *spike = c_gamma;
+        }
+        input_covariance = [[0.0, 0.0], [0.0, inp.input_covariance[1][1]]];
+    }
+    let spike_variance = inp.measured_drag.map_or(0.0, |m| m.spike_log_variance);
     let mut full = [[0.0f64; 4]; 4];
     for a in 0..4 {
         for b in 0..4 {
-            let mut c = 0.0;
+            let mut c = spike[a] * spike[b] * spike_variance;
             for i in 0..4 {
                 for j in 0..4 {
                     c += rows[a][i] * rows[b][j] * inp.correlation[i][j] * rel[i] * rel[j];
@@ -89,7 +110,7 @@ fn log_covariance(inp: &PropagationInputs) -> [[f64; 4]; 4] {
             }
             for i in 0..2 {
                 for j in 0..2 {
-                    c += rows[a][4 + i] * rows[b][4 + j] * inp.input_covariance[i][j];
+                    c += rows[a][4 + i] * rows[b][4 + j] * input_covariance[i][j];
                 }
             }
             full[a][b] = c;

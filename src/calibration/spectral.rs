@@ -78,6 +78,7 @@ pub(crate) fn spectral_stage(
     samples: &[f64],
     model: SpectrumModel,
     options: &AnalysisOptions,
+    drive_hz: Option<f64>,
 ) -> Result<SpectralStage, CalibrationError> {
     let n_windows = options
         .n_windows
@@ -107,6 +108,17 @@ pub(crate) fn spectral_stage(
     .ok_or_else(too_short)?;
     if options.exclude_peaks {
         fit_options.excluded_bins = excluded_bins(&peaks, periodogram.psd.len());
+    }
+    // A stage drive was subtracted before: its bins lost two degrees of freedom and stay out
+    // of the fit whatever the peak setting (PHYSICS.md section 9: leave the spike's bin out).
+    if let Some(fd) = drive_hz {
+        let resolution = periodogram.resolution_hz();
+        fit_options.excluded_bins.extend(
+            (0..periodogram.psd.len())
+                .filter(|&k| (periodogram.frequency_hz(k) - fd).abs() <= 1.5 * resolution),
+        );
+        fit_options.excluded_bins.sort_unstable();
+        fit_options.excluded_bins.dedup();
     }
     // Low-frequency drift reaches into the fit range: a 1/f term is tried beside the model and
     // kept when the data ask for it (see `drift`). This runs before the noise floor's test, since

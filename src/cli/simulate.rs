@@ -125,6 +125,17 @@ pub struct SimulateArgs {
     /// beads released from one point); exact AR(1) path only.
     #[arg(long, value_name = "NM", allow_negative_numbers = true)]
     pub start_nm: Option<f64>,
+    /// Oscillate the sample stage sinusoidally at this frequency, Hz (active calibration): the
+    /// driven axis gets the bead's steady-state response to the moving fluid, exactly, on top of
+    /// its thermal motion. With --drive-amplitude.
+    #[arg(long, value_name = "HZ", requires = "drive_amplitude")]
+    pub drive_frequency: Option<f64>,
+    /// Stage amplitude, zero to peak, nm. With --drive-frequency.
+    #[arg(long, value_name = "NM", requires = "drive_frequency")]
+    pub drive_amplitude: Option<f64>,
+    /// The driven axis (default: the first).
+    #[arg(long, value_name = "NAME", requires = "drive_frequency")]
+    pub drive_axis: Option<String>,
     /// Where to write the truth (default: OUTPUT with `.truth.json` appended).
     #[arg(long)]
     pub truth: Option<PathBuf>,
@@ -146,7 +157,23 @@ struct Truth {
     /// Only with --start-nm (so plain recordings keep their truth bytes).
     #[serde(skip_serializing_if = "Option::is_none")]
     start_nm: Option<f64>,
+    /// Only with --drive-frequency.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    drive: Option<DriveTruth>,
     axes: Vec<AxisTruth>,
+}
+
+/// The stage drive of a simulated recording.
+#[derive(Debug, Serialize)]
+struct DriveTruth {
+    frequency_hz: f64,
+    amplitude_nm: f64,
+    axis: String,
+    /// |X / X_stage|^2 of the bead at the drive frequency (`calibration::response_power`).
+    response_power: f64,
+    /// The driven motion's amplitude in the record, output unit (after the detector's filter
+    /// and the exposure).
+    recorded_amplitude: f64,
 }
 
 #[derive(Debug, Serialize)]
@@ -268,7 +295,9 @@ pub(super) fn run(args: &SimulateArgs) -> Result<u8, Failure> {
     };
     let mut axes = build_axes(args, unit, &conditions, &physics)?;
     let terms = instrument_terms(args, unit, &conditions, &physics)?;
-    let series = simulate_series(args, &mut axes, &terms, scale, unit, n_samples)?;
+    let drive = drive_of(args, &axes, &terms, scale)?;
+    let drive_line = drive.as_ref().map(|(i, line, _)| (*i, *line));
+    let series = simulate_series(args, &mut axes, &terms, scale, unit, n_samples, drive_line)?;
     let recording = Recording {
         sample_rate_hz: args.sample_rate,
         unit,
@@ -297,6 +326,7 @@ pub(super) fn run(args: &SimulateArgs) -> Result<u8, Failure> {
         viscosity_mpa_s: physics.viscosity_pa_s * 1e3,
         thermal_energy_pn_nm: physics.thermal_energy_j * 1e21,
         start_nm: args.start_nm,
+        drive: drive.map(|(_, _, truth)| truth),
         axes: axes.into_iter().map(|a| a.truth).collect(),
     };
     let truth_path = args.truth.clone().unwrap_or_else(|| {
@@ -561,6 +591,65 @@ fn flag_of(error: &SimulateError) -> &'static str {
     }
 }
 
+/// The stage drive's line on the driven axis (its index), in the output unit, and its truth.
+///
+/// The bead follows the moving fluid with X / X_stage = R(f_d) (`calibration::response_power`:
+/// i f / (fc + i f) with constant drag, Tolic-Norrelykke et al., Rev. Sci. Instrum. 77, 103101
+/// (2006); with --hydrodynamics the same derivation with the frequency-dependent drag); the
+/// detector's filter and the camera's exposure then scale the recorded amplitude by the square
+/// root of their power gains (a deterministic sinusoid below Nyquist is not aliased).
+fn drive_of(
+    args: &SimulateArgs,
+    axes: &[SimAxis],
+    terms: &Terms,
+    scale: f64,
+) -> Result<Option<(usize, Sinusoid, DriveTruth)>, Failure> {
+    let (Some(fd), Some(a)) = (args.drive_frequency, args.drive_amplitude) else {
+        return Ok(None);
+    };
+    let nyquist = args.sample_rate / 2.0;
+    if !(fd > 0.0 && fd < nyquist) {
+        return Err(usage(format!(
+            "--drive-frequency {fd} must lie between 0 and the Nyquist frequency {nyquist} Hz"
+        )));
+    }
+    if !(a.is_finite() && a > 0.0) {
+        return Err(usage(format!(
+            "--drive-amplitude {a} must be a positive amplitude in nm"
+        )));
+    }
+    let index = match &args.drive_axis {
+        None => 0,
+        Some(name) => axes
+            .iter()
+            .position(|x| &x.ou.name == name)
+            .ok_or_else(|| usage(format!("--drive-axis {name}: no such axis")))?,
+    };
+    let fc = axes[index].ou.corner_frequency_hz;
+    let response = calibration::response_power(fd, fc, terms.hydro);
+    let filter_gain = terms.filter.map_or(1.0, |f| f.gain(fd));
+    let blur_gain = terms.exposure_time_s.map_or(1.0, |w| {
+        let x = PI * fd * w;
+        (x.sin() / x).powi(2)
+    });
+    let recorded = a * (response * filter_gain * blur_gain).sqrt() * scale;
+    Ok(Some((
+        index,
+        Sinusoid {
+            frequency_hz: fd,
+            amplitude: recorded,
+            phase_rad: 0.0,
+        },
+        DriveTruth {
+            frequency_hz: fd,
+            amplitude_nm: a,
+            axis: axes[index].ou.name.clone(),
+            response_power: response,
+            recorded_amplitude: recorded,
+        },
+    )))
+}
+
 /// The samples of every axis in the output unit; fills in each axis's model truth.
 fn simulate_series(
     args: &SimulateArgs,
@@ -569,10 +658,13 @@ fn simulate_series(
     scale: f64,
     unit: PositionUnit,
     n_samples: usize,
+    drive: Option<(usize, Sinusoid)>,
 ) -> Result<Vec<Vec<f64>>, Failure> {
+    let driven = |i: usize| drive.filter(|(d, _)| *d == i).map(|(_, line)| line);
     let instrument: Vec<InstrumentAxis> = axes
         .iter()
-        .map(|a| InstrumentAxis {
+        .enumerate()
+        .map(|(i, a)| InstrumentAxis {
             corner_frequency_hz: a.ou.corner_frequency_hz,
             variance: a.ou.variance * scale * scale,
             detector_filter: terms.filter,
@@ -580,7 +672,7 @@ fn simulate_series(
             exposure_time_s: terms.exposure_time_s,
             noise_floor_rms: terms.noise_floor_rms,
             flicker: terms.flicker,
-            lines: terms.lines.clone(),
+            lines: terms.lines.iter().copied().chain(driven(i)).collect(),
             linear_drift_per_s: terms.linear_drift_per_s,
         })
         .collect();
@@ -623,9 +715,11 @@ fn simulate_series(
         .collect();
     Ok(series
         .into_iter()
-        .map(|s| {
+        .enumerate()
+        .map(|(i, s)| {
             let mut out: Vec<f64> = s.into_iter().map(|v| v * scale).collect();
-            add_lines(&mut out, args.sample_rate, &extra_lines);
+            let lines: Vec<Sinusoid> = extra_lines.iter().copied().chain(driven(i)).collect();
+            add_lines(&mut out, args.sample_rate, &lines);
             out
         })
         .collect())

@@ -322,6 +322,7 @@ fn calibration_code(e: &CalibrationError) -> (&'static str, Option<String>) {
             "principal-axes-not-applicable",
             Some("principal_axes".into()),
         ),
+        CalibrationError::InvalidDrive { field, .. } => ("invalid-drive", Some((*field).into())),
     }
 }
 

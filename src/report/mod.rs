@@ -12,7 +12,8 @@ mod tests;
 pub use summary::summary_table;
 
 use crate::calibration::{
-    AnalysisOptions, AxisCalibration, AxisCoupling, Calibration, Estimate, RunConditions,
+    ActiveCalibration, AnalysisOptions, AxisCalibration, AxisCoupling, Calibration, DragSource,
+    Estimate, RunConditions,
 };
 use crate::drag::AxisOrientation;
 use crate::equipartition::Detrend;
@@ -37,6 +38,22 @@ impl From<Estimate> for ValueSe {
             se: e.se,
         }
     }
+}
+
+/// The wire form of an axis's active calibration (`u` the recording's unit, `nm` or `V`).
+fn active_report(act: &ActiveCalibration, u: &str) -> Option<ActiveReport> {
+    let volts = u == "V";
+    Some(ActiveReport {
+        drive_frequency_hz: act.drive_frequency_hz,
+        drive_amplitude_nm: act.drive_amplitude_m / 1e-9,
+        spike_power: act.spike_power.into(),
+        power_unit: format!("{u}^2"),
+        sensitivity_nm_per_v: volts.then(|| scaled(act.metres_per_unit, 1e9)),
+        scale_factor: (!volts).then(|| scaled(act.metres_per_unit, 1e9)),
+        drag_pn_s_per_nm: scaled(act.drag_kg_per_s, 1e3),
+        drag_ratio: act.drag_ratio.into(),
+        stiffness_pn_per_nm: act.stiffness_pn_per_nm?.into(),
+    })
 }
 
 fn scaled(e: Estimate, factor: f64) -> ValueSe {
@@ -177,7 +194,9 @@ pub struct AxisReport {
     pub orientation: String,
     /// gamma / gamma0 from the wall correction (1 in bulk).
     pub wall_factor: f64,
-    pub drag_pn_s_per_nm: ValueSe,
+    /// The drag every method of this axis uses: assumed from the run conditions, or measured
+    /// by a stage drive.
+    pub drag_pn_s_per_nm: AxisDragReport,
     /// From the spectral fit; null when that method failed (a `method-failed` finding says why).
     pub corner_frequency_hz: Option<ValueSe>,
     /// From the autocorrelation fit; null when that method failed.
@@ -207,6 +226,10 @@ pub struct AxisReport {
     /// `noise_floor` off or without a spectral fit.
     #[serde(default)]
     pub noise_floor: Option<NoiseFloorReport>,
+    /// The active calibration by a stage drive; null for an axis the stage did not drive (and
+    /// in documents written before it existed).
+    #[serde(default)]
+    pub active: Option<ActiveReport>,
     /// The overlapping Allan deviation of the record against the fitted model's curve and
     /// band (a diagnostic, not a stiffness estimate); null in documents made before it existed.
     #[serde(default)]
@@ -214,6 +237,46 @@ pub struct AxisReport {
     /// Arrays for plotting; omitted where a caller asked for the summary only.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub plots: Option<Plots>,
+}
+
+/// An axis's drag, pN s/nm, and where it comes from.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct AxisDragReport {
+    pub value: f64,
+    pub se: f64,
+    /// `assumed` (from the bead diameter, viscosity and height) or `measured` (by a stage
+    /// drive); documents written before it existed read as `assumed`.
+    #[serde(default = "assumed_source")]
+    pub source: String,
+}
+
+fn assumed_source() -> String {
+    DragSource::Assumed.name().to_string()
+}
+
+/// What the stage drive measured on one axis (Tolic-Norrelykke et al., Rev. Sci. Instrum. 77,
+/// 103101 (2006)).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ActiveReport {
+    pub drive_frequency_hz: f64,
+    /// Stage amplitude, zero to peak, nm.
+    pub drive_amplitude_nm: f64,
+    /// The spike's power in the record (mean square of the driven motion, the background at
+    /// the drive frequency subtracted), in `power_unit`.
+    pub spike_power: ValueSe,
+    /// `V^2` or `nm^2`.
+    pub power_unit: String,
+    /// beta = sqrt(W_th / W_ex), nm/V, for volt data; null for nanometre data.
+    pub sensitivity_nm_per_v: Option<ValueSe>,
+    /// The same ratio for nanometre data: true nanometres per recorded nanometre (1 when the
+    /// camera's or detector's nanometre calibration is right); null for volt data.
+    pub scale_factor: Option<ValueSe>,
+    /// The measured drag kB T / D, pN s/nm.
+    pub drag_pn_s_per_nm: ValueSe,
+    /// Measured drag over the drag expected from the given bead diameter, viscosity and height.
+    pub drag_ratio: ValueSe,
+    /// The spectral stiffness with the measured drag, pN/nm (the psd estimate of this axis).
+    pub stiffness_pn_per_nm: ValueSe,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -575,7 +638,12 @@ fn axis_report(
         axis: a.axis.clone(),
         orientation: orientation_name(a.orientation).into(),
         wall_factor: a.wall_factor,
-        drag_pn_s_per_nm: scaled(a.drag_kg_per_s, 1e3),
+        drag_pn_s_per_nm: AxisDragReport {
+            value: a.drag_kg_per_s.value * 1e3,
+            se: a.drag_kg_per_s.se * 1e3,
+            source: a.drag_source.name().to_string(),
+        },
+        active: a.active.as_ref().and_then(|act| active_report(act, u)),
         corner_frequency_hz: a.corner_frequency_hz.map(Into::into),
         relaxation_time_s: a.relaxation_time_s.map(Into::into),
         diffusion: a.diffusion.map(Into::into),

@@ -152,6 +152,23 @@ pub fn summary_table(r: &CalibrationReport) -> String {
                 100.0 * share
             );
         }
+        if let Some(act) = &a.active {
+            let scale = match (&act.sensitivity_nm_per_v, &act.scale_factor) {
+                (Some(beta), _) => format!("beta {} nm/V", pm(beta)),
+                (None, Some(f)) => format!("scale factor {}", pm(f)),
+                _ => String::new(),
+            };
+            let _ = writeln!(
+                s,
+                "{}: stage drive {} Hz, {} nm: {scale}, drag {} pN·s/nm measured ({} times the assumed), used by every method; kappa {} pN/nm",
+                a.axis,
+                act.drive_frequency_hz,
+                act.drive_amplitude_nm,
+                pm(&act.drag_pn_s_per_nm),
+                pm(&act.drag_ratio),
+                pm(&act.stiffness_pn_per_nm),
+            );
+        }
         for reason in &a.verdict_reasons {
             let _ = writeln!(s, "{}: {}", a.axis, reason);
         }

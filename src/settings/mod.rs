@@ -9,7 +9,7 @@
 
 pub mod spec;
 
-use crate::calibration::{AnalysisOptions, RunConditions};
+use crate::calibration::{AnalysisOptions, Drive, RunConditions};
 use crate::drag;
 use crate::equipartition::Detrend;
 use crate::ingest::{DEFAULT_TIME_TOLERANCE, Format, IngestOptions};
@@ -302,7 +302,76 @@ impl Settings {
         if let Some(p) = self.number("precision_percent") {
             analysis.target_relative_precision = p / 100.0;
         }
+        analysis.drive = self.drive()?;
         Ok((ingest, conditions, analysis))
+    }
+}
+
+impl Settings {
+    /// The stage drive: frequency and amplitude together, or neither; the other drive
+    /// settings only with them (a standard error of zero, the stated default, is always
+    /// accepted).
+    fn drive(&self) -> Result<Option<Drive>, SettingsError> {
+        let frequency = self.number("drive_frequency_hz");
+        let amplitude = self.number("drive_amplitude_nm");
+        let se = self.number("drive_amplitude_se_nm").unwrap_or(0.0);
+        let (frequency_hz, amplitude_nm) = match (frequency, amplitude) {
+            (Some(f), Some(a)) => (f, a),
+            (Some(f), None) => {
+                return Err(bad(
+                    "drive_frequency_hz",
+                    &f.to_string(),
+                    "a stage drive needs its amplitude too: give drive_amplitude_nm".to_string(),
+                ));
+            }
+            (None, Some(a)) => {
+                return Err(bad(
+                    "drive_amplitude_nm",
+                    &a.to_string(),
+                    "a stage drive needs its frequency too: give drive_frequency_hz".to_string(),
+                ));
+            }
+            (None, None) => {
+                for key in ["drive_axis", "drive_drag_to"] {
+                    if let Some(names) = self.names(key) {
+                        return Err(bad(
+                            key,
+                            &names.join(","),
+                            "it applies only to a driven recording: give drive_frequency_hz and drive_amplitude_nm".to_string(),
+                        ));
+                    }
+                }
+                if se > 0.0 {
+                    return Err(bad(
+                        "drive_amplitude_se_nm",
+                        &se.to_string(),
+                        "it applies only to a driven recording: give drive_frequency_hz and drive_amplitude_nm".to_string(),
+                    ));
+                }
+                return Ok(None);
+            }
+        };
+        let axis = match self.names("drive_axis") {
+            None => None,
+            Some([one]) => Some(one.clone()),
+            Some(many) => {
+                return Err(bad(
+                    "drive_axis",
+                    &many.join(","),
+                    "name one axis: the stage is driven along one axis at a time".to_string(),
+                ));
+            }
+        };
+        Ok(Some(Drive {
+            frequency_hz,
+            amplitude_m: amplitude_nm * 1e-9,
+            amplitude_se_m: se * 1e-9,
+            axis,
+            drag_to: self
+                .names("drive_drag_to")
+                .map(<[String]>::to_vec)
+                .unwrap_or_default(),
+        }))
     }
 }
 

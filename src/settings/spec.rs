@@ -724,6 +724,75 @@ pub const SPECS: &[SettingSpec] = &[
         },
     },
     SettingSpec {
+        key: "drive_frequency_hz",
+        label: "Stage drive frequency",
+        kind: Kind::Number(Range::Positive),
+        unit: "Hz",
+        help: "Frequency at which the sample stage was oscillated during the recording, for \
+               active calibration (with the stage amplitude); below the Nyquist frequency.",
+        absent: Absent::Means("no drive: passive calibration with the assumed drag"),
+        example: "32",
+        flag: Flag::Value {
+            long: "drive-frequency",
+            value_name: "HZ",
+        },
+    },
+    SettingSpec {
+        key: "drive_amplitude_nm",
+        label: "Stage drive amplitude",
+        kind: Kind::Number(Range::Positive),
+        unit: "nm",
+        help: "Amplitude (zero to peak) of the stage's sinusoidal motion; given with the \
+               drive frequency.",
+        absent: Absent::Means("required when a drive frequency is given"),
+        example: "150",
+        flag: Flag::Value {
+            long: "drive-amplitude",
+            value_name: "NM",
+        },
+    },
+    SettingSpec {
+        key: "drive_amplitude_se_nm",
+        label: "Drive amplitude error",
+        kind: Kind::Number(Range::NonNegative),
+        unit: "nm",
+        help: "Standard error of the stage amplitude from the stage's own calibration; it \
+               enters the sensitivity, the measured drag and the stiffness.",
+        absent: Absent::Default("0"),
+        example: "3",
+        flag: Flag::Value {
+            long: "drive-amplitude-se",
+            value_name: "NM",
+        },
+    },
+    SettingSpec {
+        key: "drive_axis",
+        label: "Driven axis",
+        kind: Kind::Names,
+        unit: "",
+        help: "Name of the axis along which the stage was driven (one name).",
+        absent: Absent::Means("the recording's first axis"),
+        example: "y",
+        flag: Flag::Value {
+            long: "drive-axis",
+            value_name: "NAME",
+        },
+    },
+    SettingSpec {
+        key: "drive_drag_to",
+        label: "Share measured drag with",
+        kind: Kind::Names,
+        unit: "",
+        help: "Comma-separated lateral axes of the same bead that take the drag measured on \
+               the driven lateral axis instead of the drag assumed from the run conditions.",
+        absent: Absent::Means("no other axis: undriven axes keep the assumed drag"),
+        example: "y",
+        flag: Flag::Value {
+            long: "drive-drag-to",
+            value_name: "NAMES",
+        },
+    },
+    SettingSpec {
         key: "precision_percent",
         label: "Target precision",
         kind: Kind::Number(Range::Positive),

@@ -120,6 +120,52 @@ fn every_row_round_trips_through_its_canonical_text() {
     }
 }
 
+/// The settings a row applies with: the drive's rows mean something only for a driven
+/// recording, whose frequency and amplitude come together (`Settings::drive`).
+fn companions(key: &str) -> &'static [(&'static str, &'static str)] {
+    match key {
+        "drive_frequency_hz" => &[("drive_amplitude_nm", "150")],
+        "drive_amplitude_nm" => &[("drive_frequency_hz", "32")],
+        "drive_amplitude_se_nm" | "drive_axis" | "drive_drag_to" => {
+            &[("drive_frequency_hz", "32"), ("drive_amplitude_nm", "150")]
+        }
+        _ => &[],
+    }
+}
+
+#[test]
+fn drive_settings_come_together_and_name_what_is_missing() {
+    let base = base();
+    for (key, value, named) in [
+        ("drive_frequency_hz", "32", "drive_frequency_hz"),
+        ("drive_amplitude_nm", "150", "drive_amplitude_nm"),
+        ("drive_axis", "x", "drive_axis"),
+        ("drive_drag_to", "y", "drive_drag_to"),
+        ("drive_amplitude_se_nm", "2", "drive_amplitude_se_nm"),
+    ] {
+        match with(&base, key, value).resolve() {
+            Err(SettingsError::BadValue { key: k, .. }) => assert_eq!(k, named, "{key}"),
+            other => panic!("{key} alone: {other:?}"),
+        }
+    }
+    // The stated default of the amplitude's error alone is no drive at all.
+    assert!(with(&base, "drive_amplitude_se_nm", "0").resolve().is_ok());
+    let both = with(
+        &with(&base, "drive_frequency_hz", "32.5"),
+        "drive_amplitude_nm",
+        "150",
+    );
+    let (_, _, analysis) = both.resolve().expect("a drive");
+    let drive = analysis.drive.expect("drive");
+    assert_eq!(drive.frequency_hz, 32.5);
+    assert!((drive.amplitude_m - 150e-9).abs() < 1e-20);
+    assert_eq!(drive.axis, None);
+    match with(&both, "drive_axis", "x,y").resolve() {
+        Err(SettingsError::BadValue { key, .. }) => assert_eq!(key, "drive_axis"),
+        other => panic!("two driven axes: {other:?}"),
+    }
+}
+
 #[test]
 fn every_row_is_used_by_resolve() {
     let base = base();
@@ -137,7 +183,11 @@ fn every_row_is_used_by_resolve() {
                 s.key
             );
         } else {
-            let changed = resolved(&with(&base, s.key, s.example));
+            let context = companions(s.key)
+                .iter()
+                .fold(base.clone(), |acc, (k, v)| with(&acc, k, v));
+            let plain = resolved(&context);
+            let changed = resolved(&with(&context, s.key, s.example));
             assert!(!changed.starts_with("error"), "{}: {changed}", s.key);
             assert_ne!(
                 changed, plain,

@@ -173,6 +173,19 @@ pub fn fit_line(y: &[f64], sample_rate_hz: f64, f0_hz: f64, half_width_hz: f64) 
     }
 }
 
+/// The least-squares sinusoid at exactly `f_hz`, with no search: for a line whose frequency is
+/// known (a stage driven by a generator), searching would pick the frequency where the
+/// background adds most and bias the line's power upward. `y` must have its mean removed.
+pub fn line_at(y: &[f64], sample_rate_hz: f64, f_hz: f64) -> SpectralLine {
+    let (a, b, _) = fit_at(y, 2.0 * PI * f_hz / sample_rate_hz);
+    SpectralLine {
+        frequency_hz: f_hz,
+        amplitude: a.hypot(b),
+        cos_coefficient: a,
+        sin_coefficient: b,
+    }
+}
+
 /// Subtracts fitted lines from `y` in place.
 ///
 /// The phasor exp(i w j) advances by rotation, four interleaved phasors at a time, and is

@@ -33,7 +33,7 @@ pub use floor::{
     NOISE_FLOOR_CRITICAL_LR, NOISE_FLOOR_FALSE_INCLUSION, NoiseFloorLevel, NoiseFloorMode,
     NoiseFloorTest, boundary_mixture_p_value, fit_spectrum_with_floor,
 };
-pub use lines::{SpectralLine, fit_line, subtract_lines};
+pub use lines::{SpectralLine, fit_line, line_at, subtract_lines};
 pub(crate) use model::Params;
 pub use model::{
     DetectorFilter, FilterSetting, HydroTerms, SpectrumModel, aliased_lorentzian_one_sided,

@@ -577,8 +577,8 @@ fn impossible_instrument_terms_are_refused_with_a_clear_message() {
 #[test]
 fn demo_recordings_are_reproduced_byte_for_byte() {
     // The same commands as demo-data/make-demo.sh: the simulator's streams must not change the
-    // published demo files (the AR(1) path for the first three, the spectral synthesis for the
-    // fourth).
+    // published demo files (the AR(1) path for the first three and the driven fifth, the
+    // spectral synthesis for the fourth).
     let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data");
     let script = std::fs::read_to_string(demo.join("make-demo.sh")).expect("make-demo.sh");
     let dir = tempfile::tempdir().expect("temp dir");
@@ -599,5 +599,5 @@ fn demo_recordings_are_reproduced_byte_for_byte() {
         }
         checked += 1;
     }
-    assert_eq!(checked, 4, "demo commands found in make-demo.sh");
+    assert_eq!(checked, 5, "demo commands found in make-demo.sh");
 }

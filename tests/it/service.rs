@@ -35,6 +35,16 @@ async fn every_demo_file_gives_the_cli_numbers_and_its_bytes_back(backend: Backe
         assert_eq!(status, 201, "{}: {doc}", file.name());
         // The service's result equals the offline CLI's JSON number for number.
         assert_eq!(doc["result"], cli_result(&file), "{}", file.name());
+        // The drive's fields reach the calibration as the command line's flags do.
+        let driven = file.name() == "driven.csv";
+        let axis = &doc["result"]["axes"][0];
+        assert_eq!(axis["active"].is_object(), driven, "{}", file.name());
+        assert_eq!(
+            axis["drag_pn_s_per_nm"]["source"],
+            if driven { "measured" } else { "assumed" },
+            "{}",
+            file.name()
+        );
         assert_eq!(text(&doc, "instrument"), "bench-a");
         assert_eq!(text(&doc, "note"), "after realignment");
         let id = text(&doc, "id");
@@ -92,7 +102,7 @@ async fn every_demo_file_gives_the_cli_numbers_and_its_bytes_back(backend: Backe
     let c = counts(&server).await;
     assert_eq!(
         (c.calibrations, c.recordings, c.blob_files, c.temp_files),
-        (5, 5, 5, 0)
+        (6, 6, 6, 0)
     );
     server.stop().await;
 }

@@ -269,7 +269,8 @@ fn common() -> Vec<(&'static str, &'static str, String)> {
 }
 
 /// Demo recordings in every family of format: CSV with a time column, TSV, NumPy, raw
-/// 16-bit counts in volts with three interleaved channels, raw float32.
+/// 16-bit counts in volts with three interleaved channels, raw float32, and a CSV in volts
+/// with the sample stage driven (active calibration).
 pub(crate) fn demo_files(dir: &Path) -> Vec<DemoFile> {
     let mut files = Vec::new();
     files.push(DemoFile {
@@ -342,6 +343,29 @@ pub(crate) fn demo_files(dir: &Path) -> Vec<DemoFile> {
             ],
         ),
         conditions: f32,
+    });
+    // Active calibration: the stage driven at 32.3 Hz, 400 nm, volts in a CSV.
+    let mut driven = common();
+    driven.push(("--drive-frequency", "drive_frequency_hz", "32.3".into()));
+    driven.push(("--drive-amplitude", "drive_amplitude_nm", "400".into()));
+    files.push(DemoFile {
+        path: simulate(
+            dir,
+            "driven.csv",
+            &[
+                "--units",
+                "V",
+                "--stiffness",
+                "0.04",
+                "--drive-frequency",
+                "32.3",
+                "--drive-amplitude",
+                "400",
+                "--seed",
+                "16",
+            ],
+        ),
+        conditions: driven,
     });
     files
 }
