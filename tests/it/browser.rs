@@ -1109,10 +1109,15 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
         "{}",
         String::from_utf8_lossy(&output.stderr)
     );
-    let fields: Vec<(String, String)> = [("bead_diameter_um", "1"), ("temperature_c", "25")]
-        .iter()
-        .map(|(k, v)| (k.to_string(), v.to_string()))
-        .collect();
+    let fields: Vec<(String, String)> = [
+        ("instrument", "bench-a"),
+        ("trap", "t3"),
+        ("bead_diameter_um", "1"),
+        ("temperature_c", "25"),
+    ]
+    .iter()
+    .map(|(k, v)| (k.to_string(), v.to_string()))
+    .collect();
     let (status, doc) = api_upload(
         &server,
         &fields,
