@@ -767,9 +767,9 @@ pub fn noise_floor(inputs: &NoiseFloorInputs<'_>) -> Option<Finding> {
     })
 }
 
-/// `drift-dominates`: from some averaging time up to the longest measured, the record's Allan
-/// deviation stays above the band the fitted model of the thermal motion predicts (see
-/// `crate::allan`), so on those time scales the position is dominated by drift rather than by
+/// `drift-dominates`: from some averaging time the record's Allan deviation lies above the band
+/// the fitted model of the thermal motion predicts, and above that model's curve up to the
+/// longest averaging time (see `crate::allan::drift_onset`), so on those time scales the position is dominated by drift rather than by
 /// the trap. `drift_onset_s` is that averaging time (s), `None` when there is none;
 /// `record_s` the record's length (s). A warning: averages of the position over longer times
 /// are limited by drift, and a longer record will not make them better (the minimum of the
@@ -790,7 +790,7 @@ pub fn drift_dominates(
         "drift-dominates",
         Severity::Warning,
         format!(
-            "axis `{axis}`: from an averaging time of {onset:.3e} s up to the longest measured (a third of the {record_s:.3e} s record), the Allan deviation of the position ({unit}) stays above the band the fitted model of the trapped bead's motion allows (central 99.8 %): drift, not the trap, dominates the position on those time scales. Averaging the position for longer than that does not make it more precise; reduce the drift at its source (stage, temperature, laser pointing) or keep measurements shorter"
+            "axis `{axis}`: from an averaging time of {onset:.3e} s the Allan deviation of the position ({unit}) lies above the band the fitted model of the trapped bead's motion allows (central 99.8 %), and it stays above that model's curve up to the longest averaging time measured (a third of the {record_s:.3e} s record): drift, not the trap, dominates the position on those time scales. Averaging the position for longer than that does not make it more precise; reduce the drift at its source (stage, temperature, laser pointing) or keep measurements shorter"
         ),
     ))
 }

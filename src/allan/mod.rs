@@ -248,17 +248,21 @@ fn band_factors(edf: f64) -> (f64, f64) {
     }
 }
 
-/// The drift onset: the shortest averaging time where the measured deviation lies above the
-/// band's upper edge and from which it never comes back to the expected curve or below, up to
-/// the longest averaging time; `None` when there is none.
+/// The drift onset: the shortest averaging time of the last run of points above the band's
+/// upper edge, when every point after that run lies above the expected curve; `None` when no
+/// point is above the band or one after the last such point comes back to the expected curve
+/// or below.
 ///
 /// Why not "above the band at every point from there on": the last points rest on a few
 /// overlapping differences (about 4 equivalent degrees of freedom at a third of the record), so
 /// their upper edge lies at 4 times the expected variance, and drift that carries two thirds of
-/// the variance there would never be declared. Leaving the band once and staying above the
-/// expectation after it is a test of the same level at the point of exit, while the points
+/// the variance there would never be declared. Leaving the band and staying above the
+/// expectation after it is a test of the band's level at the point of exit, while the points
 /// beyond it only have to confirm the direction (a choice, no source; the tests measure the
-/// false-alarm rate on clean records: see [`BAND_PROBABILITIES`]).
+/// false-alarm rate on clean records: see [`BAND_PROBABILITIES`]). The onset is the start of the
+/// last run above the band rather than the first point outside it, because at the shortest
+/// averaging times the band is narrow (thousands of degrees of freedom) and a small misfit of
+/// the spectral model can put an isolated point there outside it.
 pub fn drift_onset(
     tau_s: &[f64],
     deviation: &[f64],
@@ -270,14 +274,15 @@ pub fn drift_onset(
         .min(deviation.len())
         .min(high.len())
         .min(expected.len());
-    // The run of points above the expected curve that reaches the end.
-    let mut first = n;
-    while first > 0 && deviation[first - 1] > expected[first - 1] {
+    let last_out = (0..n).rev().find(|&i| deviation[i] > high[i])?;
+    if !(last_out + 1..n).all(|i| deviation[i] > expected[i]) {
+        return None;
+    }
+    let mut first = last_out;
+    while first > 0 && deviation[first - 1] > high[first - 1] {
         first -= 1;
     }
-    (first..n)
-        .find(|&i| deviation[i] > high[i])
-        .map(|i| tau_s[i])
+    Some(tau_s[first])
 }
 
 /// The model's Allan deviation and band at the block sizes `block_sizes`, for a record of

@@ -334,6 +334,8 @@ fn drift_onset_is_the_start_of_the_last_run_above_the_band() {
     assert_eq!(onset(&[0.4, 2.0, 0.8, 0.9]), Some(2.0));
     // Above the expected curve to the end but never out of the band: none.
     assert_eq!(onset(&[0.4, 0.8, 0.9, 0.9]), None);
+    // An isolated point out of the band before the last run: the onset is the run's start.
+    assert_eq!(onset(&[2.0, 0.8, 2.0, 0.9]), Some(4.0));
     // Back to the expected curve at the end: none.
     assert_eq!(onset(&[2.0, 2.0, 2.0, 0.5]), None);
     assert_eq!(drift_onset(&[], &[], &[], &[]), None);

@@ -424,8 +424,9 @@ pub struct AllanReport {
     pub expected_high: Option<Vec<f64>>,
     /// `nm` or `V`.
     pub unit: String,
-    /// The shortest averaging time, s, where the measured deviation leaves the band upwards and
-    /// after which it stays above the expected curve; null when there is none (or no fit).
+    /// The start, s, of the last run of averaging times where the measured deviation lies
+    /// above the band, when every later one stays above the expected curve; null when there is
+    /// none (or no fit).
     pub drift_onset_s: Option<f64>,
 }
 
