@@ -834,7 +834,7 @@ function allanFigure(axis, allan) {
   }
   const onset = el("p", { class: "allan-onset", "data-quantity": "drift-onset", "data-value": allan.drift_onset_s ?? "",
     text: allan.drift_onset_s != null
-      ? `Drift onset: from τ = ${fmt(allan.drift_onset_s, 3)} s the measured deviation stays above what the fitted model allows.`
+      ? `Drift onset: from τ = ${fmt(allan.drift_onset_s, 3)} s the measured deviation lies above the band and stays above the expected curve.`
       : allan.expected ? "No drift onset: the measured deviation ends within or below the band." : "No expected curve: the spectral fit failed." });
   return figure("allan", axis, `Allan deviation, axis ${axis}`, c.node, legend(items), onset);
 }
