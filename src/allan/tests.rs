@@ -400,6 +400,7 @@ fn measured_curve_matches_allantools_on_its_fixture() {
 }
 
 #[test]
+#[allow(clippy::suboptimal_flops)]
 fn the_strided_band_sum_stays_close_to_the_full_sum() {
     // For m > 256 the band's sum over R_D(k)^2 counts blocks of m/256 lags by their middle lag;
     // against the full sum, lag by lag, for OU with tau = 8 samples at m = 1024 to 2^16 in a
