@@ -2,7 +2,8 @@
 //! samples end to end, next to one real-input FFT of the same length (plan included, as a fresh
 //! process pays it too) in the same run; and, at 2^20 samples, the calibration of one axis under
 //! the default model (frequency-dependent drag on) against the plain model it replaced as the
-//! default, in the same run (the target: at most 1.5 times). Run with
+//! default, in the same run (the target: at most 1.5 times), and the Allan stage alone beside
+//! each. Run with
 //! `cargo bench --bench calibrate`.
 
 use criterion::{Criterion, criterion_group, criterion_main};
@@ -86,7 +87,8 @@ fn bench(c: &mut Criterion) {
 }
 
 /// One axis of 2^20 samples calibrated with the drag modelled (the run settings' default) and
-/// without it, from the same recording in the same run.
+/// without it, from the same recording in the same run; and the Allan stage alone under each,
+/// to set its cost against the whole calibration.
 fn bench_default_model(c: &mut Criterion) {
     use trapwise::calibration::{AnalysisOptions, RunConditions, calibrate};
     let n = 1 << 20;
@@ -114,6 +116,35 @@ fn bench_default_model(c: &mut Criterion) {
         };
         group.bench_function(name, |b| {
             b.iter(|| black_box(calibrate(&recording, &conditions, &options).expect("calibrates")))
+        });
+        // The Allan stage alone (it is part of the calibration above): the fitted model's
+        // autocovariance, the measured curve and the band, on the same samples.
+        let fit = calibrate(&recording, &conditions, &options)
+            .expect("calibrates")
+            .axes
+            .remove(0)
+            .spectrum
+            .expect("the spectral fit");
+        let model = trapwise::autocorrelation::TimeDomainModel {
+            sample_rate_hz: FS,
+            filter: None,
+            hydro: fit.model.hydro,
+            exposure_s: None,
+        };
+        let samples = &recording.axes[0].samples;
+        group.bench_function(format!("Allan stage alone, {name}"), |b| {
+            b.iter(|| {
+                let longest = trapwise::allan::octave_block_sizes(samples.len())
+                    .last()
+                    .copied()
+                    .unwrap_or(0);
+                let lags = model.autocovariance_series(
+                    fit.corner_frequency_hz,
+                    fit.diffusion,
+                    2 * longest + 1,
+                );
+                black_box(trapwise::allan::allan_curve(samples, FS, Some(&lags)))
+            })
         });
     }
     group.finish();

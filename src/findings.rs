@@ -870,3 +870,31 @@ pub fn noise_floor(inputs: &NoiseFloorInputs<'_>) -> Option<Finding> {
         )
     })
 }
+
+/// `drift-dominates`: from some averaging time the record's Allan deviation lies above the band
+/// the fitted model of the thermal motion predicts, and above that model's curve up to the
+/// longest averaging time (see `crate::allan::drift_onset`), so on those time scales the position is dominated by drift rather than by
+/// the trap. `drift_onset_s` is that averaging time (s), `None` when there is none;
+/// `record_s` the record's length (s). A warning: averages of the position over longer times
+/// are limited by drift, and a longer record will not make them better (the minimum of the
+/// Allan deviation marks the best averaging time; Czerwinski, Richardson & Oddershede, Opt.
+/// Express 17, 13255 (2009)).
+pub fn drift_dominates(
+    axis: &str,
+    unit: PositionUnit,
+    drift_onset_s: Option<f64>,
+    record_s: f64,
+) -> Option<Finding> {
+    let onset = drift_onset_s.filter(|t| t.is_finite() && *t > 0.0 && *t <= record_s)?;
+    let unit = match unit {
+        PositionUnit::Nanometre => "nm",
+        PositionUnit::Volt => "V",
+    };
+    Some(finding(
+        "drift-dominates",
+        Severity::Warning,
+        format!(
+            "axis `{axis}`: from an averaging time of {onset:.3e} s the Allan deviation of the position ({unit}) lies above the band the fitted model of the trapped bead's motion allows (central 99.8 %), and it stays above that model's curve up to the longest averaging time measured (a third of the {record_s:.3e} s record): drift, not the trap, dominates the position on those time scales. Averaging the position for longer than that does not make it more precise; reduce the drift at its source (stage, temperature, laser pointing) or keep measurements shorter"
+        ),
+    ))
+}

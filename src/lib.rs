@@ -6,6 +6,7 @@
 //! (file formats), `report` (wire types and text summaries), `store` (database and raw
 //! uploads), `http` (the calibration service), `config` (the service's environment) and `cli`.
 
+pub mod allan;
 pub mod autocorrelation;
 pub mod calibration;
 pub mod cli;

@@ -794,6 +794,51 @@ function acfFigure(axis, acf, unit) {
     legend([["dot", "measured autocovariance"], ["line", "fitted exponential"]]));
 }
 
+/**
+ * Overlapping Allan deviation against averaging time on log-log axes (the service's numbers,
+ * drawn here): measured points, the deviation the fitted spectral model predicts, the band of
+ * the estimator around it, and the drift onset when there is one. The values are the API's
+ * axes[i].allan, each mark carrying its exact value in data-value.
+ */
+function allanFigure(axis, allan) {
+  const unit = unitText(allan.unit);
+  const xs = allan.tau_s;
+  const data = pairs(xs, allan.deviation, true, true);
+  const expected = allan.expected ? pairs(xs, allan.expected, true, true) : [];
+  const yValues = [...allan.deviation, ...(allan.expected || []), ...(allan.expected_low || []), ...(allan.expected_high || [])];
+  const c = chart({
+    x: { domain: padLog(extent(xs, true), 0.04), log: true, label: "Averaging time τ (s)" },
+    y: { domain: padLog(extent(yValues, true)), log: true, label: `Allan deviation (${unit})` },
+    label: `Allan deviation of axis ${axis}: ${data.length} averaging times${allan.expected ? ", the fitted model's curve and its band" : ""}, log-log`,
+  });
+  const items = [["dot", "measured (overlapping)"]];
+  if (allan.expected_low && allan.expected_high) {
+    const upper = pairs(xs, allan.expected_high, true, true).map(([a, b]) => `${c.sx(a).toFixed(2)},${c.sy(b).toFixed(2)}`);
+    const lower = pairs(xs, allan.expected_low, true, true).map(([a, b]) => `${c.sx(a).toFixed(2)},${c.sy(b).toFixed(2)}`).reverse();
+    if (upper.length >= 2) c.plot.append(svg("polygon", { class: "series-band", "data-series": "spread", "data-points": upper.length, points: [...upper, ...lower].join(" ") }));
+    items.push(["band", "band of the estimator (central 99.8 %)"]);
+  }
+  if (expected.length) {
+    curve(c, expected, "expected");
+    items.push(["line", "expected from the fitted model"]);
+  }
+  const g = svg("g", { "data-series": "data" });
+  for (const [a, b] of data) {
+    g.append(svg("circle", { class: "series-data", cx: c.sx(a).toFixed(2), cy: c.sy(b).toFixed(2), r: 3, "data-series": "data", "data-tau": a, "data-value": b }));
+  }
+  c.plot.append(g);
+  if (allan.drift_onset_s !== null && allan.drift_onset_s !== undefined) {
+    const px = c.sx(allan.drift_onset_s);
+    c.plot.append(svg("line", { class: "consensus-line", "data-series": "drift-onset", "data-value": allan.drift_onset_s, x1: px, x2: px, y1: c.box.y, y2: c.box.y + c.box.h }));
+    items.push(["dashed", `drift dominates from τ = ${fmt(allan.drift_onset_s, 3)} s`]);
+  }
+  const onset = el("p", { class: "allan-onset", "data-quantity": "drift-onset", "data-value": allan.drift_onset_s ?? "",
+    text: allan.drift_onset_s != null
+      ? `Drift onset: from τ = ${fmt(allan.drift_onset_s, 3)} s the measured deviation lies above the band and stays above the expected curve.`
+      : allan.expected ? "No drift onset: the measured deviation ends within or below the band." : "No expected curve: the spectral fit failed." });
+  return figure("allan", axis, `Allan deviation, axis ${axis}`, c.node, legend(items), onset);
+}
+
 /** Position histogram with the Gaussian expected from equipartition. */
 function histogramFigure(axis, hist, unit) {
   const half = hist.bin_width / 2;
@@ -937,6 +982,7 @@ function axisCard(axis, report, plotsOfAxis) {
       plotsOfAxis.spectrum ? spectrumFigure(axis.axis, plotsOfAxis.spectrum, axis.spectrum_fit, unit) : null,
       plotsOfAxis.autocorrelation ? acfFigure(axis.axis, plotsOfAxis.autocorrelation, unit) : null,
       plotsOfAxis.histogram ? histogramFigure(axis.axis, plotsOfAxis.histogram, unit) : null,
+      axis.allan && axis.allan.tau_s.length ? allanFigure(axis.axis, axis.allan) : null,
       stiffnessFigure(axis.axis, s))
     : el("p", { class: "empty", text: "No plot data stored for this axis." });
   return el("section", { class: "axis-card", "data-axis": axis.axis, "aria-labelledby": `axis-${axis.axis}` },

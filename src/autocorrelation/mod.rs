@@ -21,6 +21,7 @@ mod bartlett;
 mod model;
 mod model_fit;
 mod quadrature;
+mod series;
 
 pub use model::{TimeDomainModel, variance_factor};
 pub use model_fit::{ModelAcfFit, fit_autocovariance_model};

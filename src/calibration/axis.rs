@@ -5,6 +5,7 @@
 //! each can be tested alone; this function only chains them.
 
 use super::active::{self, ActiveCalibration, ActiveInputs, Drive};
+use super::allan::allan_stage;
 use super::conditions::{self, AxisDrag, DragSource};
 use super::consensus;
 use super::covariance;
@@ -148,6 +149,8 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
     if let Some(account) = drift_account.as_mut() {
         drift::correct_variance(&mut time, account);
     }
+    // The Allan deviation of the same record against the fitted model (a diagnostic).
+    let allan = allan_stage(time_samples, sample_rate_hz, spectral.fit.as_ref().ok());
     let drift_shifts = drift_account
         .as_ref()
         .map(|a| drift::shifts(a, &spectral, &time))
@@ -264,8 +267,16 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
                 .into_iter()
                 .flatten(),
         )
+        .chain(allan.expected.as_ref().and_then(|e| {
+            findings::drift_dominates(
+                name,
+                unit,
+                e.drift_onset_s,
+                samples.len() as f64 / sample_rate_hz,
+            )
+        }))
         .collect();
-    Ok(assemble(
+    let mut axis = assemble(
         name,
         noise_floor,
         active,
@@ -278,7 +289,9 @@ pub(crate) fn calibrate_axis(input: &AxisInput<'_>) -> Result<AxisCalibration, C
         findings,
         failures,
         sample_rate_hz,
-    ))
+    );
+    axis.allan = allan;
+    Ok(axis)
 }
 
 /// The drag measured on the driven axis replaces this axis's assumed drag: its error, which
@@ -691,5 +704,6 @@ fn assemble(
         includes_input_errors: drag.includes_input_errors,
         sample_rate_hz,
         lines_removed: spectral.lines.removed,
+        allan: crate::allan::AllanCurve::default(),
     }
 }

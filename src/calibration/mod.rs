@@ -9,6 +9,9 @@
 mod active;
 #[cfg(test)]
 mod active_tests;
+mod allan;
+#[cfg(test)]
+mod allan_tests;
 mod axis;
 #[cfg(test)]
 mod camera_blur_tests;
@@ -101,8 +104,9 @@ impl RunConditions {
 /// a retried upload never returns a result computed under older models.
 ///
 /// 1: until frequency-dependent drag became the default of the run settings;
-/// 2: frequency-dependent drag on by default (`hydrodynamics`), bead material, medium density.
-pub const MODEL_VERSION: u32 = 2;
+/// 2: frequency-dependent drag on by default (`hydrodynamics`), bead material, medium density;
+/// 3: the Allan deviation of every axis (`allan`) and its `drift-dominates` finding.
+pub const MODEL_VERSION: u32 = 3;
 
 /// How the record is analysed.
 #[derive(Clone, Debug)]
@@ -339,6 +343,9 @@ pub struct AxisCalibration {
     pub n_windows: usize,
     /// Sinusoids fitted and subtracted before the autocorrelation and equipartition methods.
     pub lines_removed: Vec<spectrum::SpectralLine>,
+    /// The Allan deviation of the record the time-domain methods see, with the curve and band
+    /// of the fitted spectral model when the fit exists (a diagnostic, see `crate::allan`).
+    pub allan: crate::allan::AllanCurve,
 }
 
 /// The zero-lag correlation of two axes as calibrated, and what it says about the trap's

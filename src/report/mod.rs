@@ -230,6 +230,10 @@ pub struct AxisReport {
     /// in documents written before it existed).
     #[serde(default)]
     pub active: Option<ActiveReport>,
+    /// The overlapping Allan deviation of the record against the fitted model's curve and
+    /// band (a diagnostic, not a stiffness estimate); null in documents made before it existed.
+    #[serde(default)]
+    pub allan: Option<AllanReport>,
     /// Arrays for plotting; omitted where a caller asked for the summary only.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub plots: Option<Plots>,
@@ -402,6 +406,28 @@ pub struct NoiseFloorReport {
     pub variance: Option<ValueSe>,
     /// That variance over the measured variance.
     pub variance_share: Option<f64>,
+}
+
+/// The Allan deviation of one axis, in the recording's unit, at octave-spaced averaging times
+/// up to a third of the record.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct AllanReport {
+    /// Averaging times, s.
+    pub tau_s: Vec<f64>,
+    /// Measured overlapping Allan deviation, `unit`.
+    pub deviation: Vec<f64>,
+    /// The deviation the fitted spectral model of the bead's motion predicts (without a fitted
+    /// 1/f drift term), and the edges of the central 99.8 % band of the overlapping estimator
+    /// around it, `unit`; null when the spectral fit failed.
+    pub expected: Option<Vec<f64>>,
+    pub expected_low: Option<Vec<f64>>,
+    pub expected_high: Option<Vec<f64>>,
+    /// `nm` or `V`.
+    pub unit: String,
+    /// The start, s, of the last run of averaging times where the measured deviation lies
+    /// above the band, when every later one stays above the expected curve; null when there is
+    /// none (or no fit).
+    pub drift_onset_s: Option<f64>,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -746,7 +772,21 @@ fn axis_report(
             }),
             variance_share: n.variance_share,
         }),
+        allan: Some(allan_report(&a.allan, u)),
         plots,
+    }
+}
+
+fn allan_report(curve: &crate::allan::AllanCurve, unit: &str) -> AllanReport {
+    let expected = curve.expected.as_ref();
+    AllanReport {
+        tau_s: curve.tau_s.clone(),
+        deviation: curve.deviation.clone(),
+        expected: expected.map(|e| e.deviation.clone()),
+        expected_low: expected.map(|e| e.low.clone()),
+        expected_high: expected.map(|e| e.high.clone()),
+        unit: unit.to_string(),
+        drift_onset_s: expected.and_then(|e| e.drift_onset_s),
     }
 }
 

@@ -4,7 +4,8 @@
 use std::path::{Path, PathBuf};
 
 /// The pure numerical core (see DEVELOPERS.md).
-const CORE: [&str; 12] = [
+const CORE: [&str; 13] = [
+    "allan",
     "fft",
     "spectrum",
     "autocorrelation",

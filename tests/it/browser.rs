@@ -505,6 +505,15 @@ for (const card of document.querySelectorAll('#view-result .axis-card')) {
       expected: curve(fig('histogram'), 'expected'),
       labels: labels('histogram'),
     },
+    allan: fig('allan') ? {
+      data: [...fig('allan').querySelectorAll('circle[data-series="data"]')]
+        .map((c) => [c.dataset.tau, c.dataset.value]),
+      expected: curve(fig('allan'), 'expected'),
+      band: count(fig('allan'), 'polygon[data-series="spread"]'),
+      onset_line: [...fig('allan').querySelectorAll('[data-series="drift-onset"]')].map((l) => l.dataset.value),
+      onset: fig('allan').querySelector('[data-quantity="drift-onset"]').dataset.value,
+      labels: labels('allan'),
+    } : null,
     stiffness: {
       estimates: [...fig('stiffness').querySelectorAll('circle[data-series="estimate"]')]
         .map((c) => [c.dataset.method, c.dataset.value]),
@@ -651,6 +660,7 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
             &s["histogram"]["expected"],
             drawable(&h["centre"], &h["expected"], false, false),
         );
+        check_allan(&what("allan"), &s["allan"], &axis["allan"], unit);
         let estimates = &s["stiffness"]["estimates"];
         for (i, method) in ["psd", "acf", "equipartition"].iter().enumerate() {
             assert_eq!(estimates[i][0], *method);
@@ -683,6 +693,53 @@ fn check_result_view(shown: &Value, doc: &Value, plots: &Value) {
     assert_eq!(shown["links"]["recording"], doc["links"]["recording"]);
     assert_eq!(shown["links"]["json"], doc["links"]["self"]);
     assert_eq!(shown["links"]["plots"], doc["links"]["plots"]);
+}
+
+/// The Allan deviation figure against the axis's `allan` member: every measured point with the
+/// API's exact averaging time and deviation, the expected curve's points, the band, and the
+/// drift onset (a line at its exact value, or none).
+#[track_caller]
+fn check_allan(what: &str, shown: &Value, api: &Value, unit: &str) {
+    assert!(shown.is_object(), "{what}: no figure");
+    assert_eq!(api["unit"], unit, "{what}: unit");
+    let taus = api["tau_s"].as_array().expect("tau_s");
+    let deviation = api["deviation"].as_array().expect("deviation");
+    assert!(taus.len() >= 10, "{what}: {} averaging times", taus.len());
+    let points = shown["data"].as_array().expect("points");
+    assert_eq!(
+        points.len(),
+        drawable(&api["tau_s"], &api["deviation"], true, true)
+    );
+    for ((p, t), d) in points.iter().zip(taus).zip(deviation) {
+        assert_eq!(f64_of(&p[0], what), f64_of(t, what), "{what}: tau");
+        assert_eq!(f64_of(&p[1], what), f64_of(d, what), "{what}: deviation");
+    }
+    check_count(
+        &format!("{what} expected"),
+        &shown["expected"],
+        drawable(&api["tau_s"], &api["expected"], true, true),
+    );
+    check_count(
+        &format!("{what} band"),
+        &shown["band"],
+        usize::from(api["expected_high"].is_array()),
+    );
+    match api["drift_onset_s"].as_f64() {
+        Some(onset) => {
+            assert_eq!(f64_of(&shown["onset"], what), onset, "{what}: onset");
+            assert_eq!(shown["onset_line"].as_array().map(Vec::len), Some(1));
+            assert_eq!(f64_of(&shown["onset_line"][0], what), onset);
+        }
+        None => {
+            assert_eq!(shown["onset"], "", "{what}: onset shown without one");
+            assert_eq!(shown["onset_line"].as_array().map(Vec::len), Some(0));
+        }
+    }
+    let label = shown["labels"][1].as_str().unwrap_or("");
+    assert!(
+        label.contains(&format!("({unit})")),
+        "{what}: y label `{label}`"
+    );
 }
 
 /// Watches the progress box during an upload and records what it showed.
@@ -1097,7 +1154,67 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     browser.screenshot("result-volts-tablet", false).await;
     browser.viewport(LAPTOP).await;
 
-    // 4. The fields remember their last values across a reload.
+    // 4. A record with a linear drift of 20 nm/s (the thermal motion's sd is about 9 nm), uploaded
+    // through the API: the Allan figure marks the drift onset at the API's exact value.
+    let drifting = dir.path().join("drifting.csv");
+    let output = binary()
+        .arg("simulate")
+        .arg("-o")
+        .arg(&drifting)
+        .args(["--sample-rate", "20000", "--duration", "2"])
+        .args(["--stiffness", "0.05", "--seed", "44", "--drift", "20"])
+        .output()
+        .expect("run trapwise simulate");
+    assert!(
+        output.status.success(),
+        "{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    let fields: Vec<(String, String)> = [
+        ("instrument", "bench-a"),
+        ("trap", "t3"),
+        ("bead_diameter_um", "1"),
+        ("temperature_c", "25"),
+    ]
+    .iter()
+    .map(|(k, v)| (k.to_string(), v.to_string()))
+    .collect();
+    let (status, doc) = api_upload(
+        &server,
+        &fields,
+        Some(("drifting.csv", std::fs::read(&drifting).expect("read"))),
+    )
+    .await;
+    assert_eq!(status, 201, "{doc}");
+    let id3 = doc["id"].as_str().expect("id").to_string();
+    browser
+        .goto(&server.url(&format!("/#/calibrations/{id3}")))
+        .await;
+    browser
+        .wait_for(
+            "the drifting result",
+            &RESULT_ID.replace("return m &&", &format!("return m && m[1] === '{id3}' &&")),
+        )
+        .await;
+    let doc = api_json(&server, &format!("/api/v1/calibrations/{id3}")).await;
+    let plots = api_json(&server, &format!("/api/v1/calibrations/{id3}/plots")).await;
+    let shown = browser.js(READ_RESULT, vec![]).await;
+    check_result_view(&shown, &doc, &plots);
+    let onset = doc["result"]["axes"][0]["allan"]["drift_onset_s"].as_f64();
+    assert!(
+        onset.is_some(),
+        "no drift onset: {}",
+        doc["result"]["axes"][0]["allan"]
+    );
+    browser
+        .js(
+            "document.querySelector('#view-result figure[data-plot=allan]').scrollIntoView();",
+            vec![],
+        )
+        .await;
+    browser.screenshot("result-drift-allan", false).await;
+
+    // 5. The fields remember their last values across a reload.
     browser.goto(&server.url("/#/")).await;
     browser.client.refresh().await.expect("reload");
     browser.wait_settings().await;
