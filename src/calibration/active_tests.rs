@@ -73,6 +73,25 @@ fn drive(drive_hz: f64, amplitude_nm: f64) -> AnalysisOptions {
     }
 }
 
+/// The driven axis of a volt record of seed `seed` (drive at `drive_hz`, `amplitude_nm`; drag
+/// times `drag_factor`), calibrated with the drive and the bead diameter `diameter_m` given.
+fn driven_volt_axis(
+    seed: u64,
+    (drive_hz, amplitude_nm): (f64, f64),
+    drag_factor: f64,
+    diameter_m: f64,
+) -> AxisCalibration {
+    let (x, _) = driven_nm(seed, drive_hz, amplitude_nm, drag_factor);
+    calibrate(
+        &volts(x),
+        &RunConditions::new(diameter_m, 25.0),
+        &drive(drive_hz, amplitude_nm),
+    )
+    .expect("calibrates")
+    .axes
+    .remove(0)
+}
+
 /// Mean, standard deviation and one-se coverage of z-scores.
 fn z_stats(z: &[f64]) -> (f64, f64, f64) {
     let n = z.len() as f64;
@@ -193,19 +212,11 @@ fn active_beta_drag_and_stiffness_are_unbiased_with_honest_errors_on_driven_volt
     // sd within 0.85-1.17, coverage within 0.60-0.77, are each 4 or more of those sds away, so a
     // correct calibration fails this test far less than once in a thousand runs.
     let (fd, amplitude) = (32.3, 150.0);
-    let (_, d0) = truth();
     let phys = physics(&RunConditions::new(1.0e-6, 25.0)).expect("physics");
     let gamma = phys.stokes_drag_kg_per_s.value;
     let mut z = [Vec::new(), Vec::new(), Vec::new()];
     for seed in 0..400 {
-        let (x, _) = driven_nm(9000 + seed, fd, amplitude, 1.0);
-        let cal = calibrate(
-            &volts(x),
-            &RunConditions::new(1.0e-6, 25.0),
-            &drive(fd, amplitude),
-        )
-        .expect("calibrates");
-        let axis = &cal.axes[0];
+        let axis = &driven_volt_axis(9000 + seed, (fd, amplitude), 1.0, 1.0e-6);
         let act = axis.active.as_ref().expect("active result");
         assert_eq!(axis.drag_source, DragSource::Measured);
         let beta = act.metres_per_unit;
@@ -217,7 +228,6 @@ fn active_beta_drag_and_stiffness_are_unbiased_with_honest_errors_on_driven_volt
         let s = axis.sensitivity_nm_per_v.expect("beta");
         assert!((s.value - beta.value * 1e9).abs() < 1e-9 * s.value);
     }
-    let _ = d0;
     for (name, z) in ["beta", "drag", "stiffness"].iter().zip(&z) {
         let (mean, sd, covered) = z_stats(z);
         assert!(mean.abs() < 0.25, "{name}: mean z {mean}");
@@ -243,14 +253,7 @@ fn with_a_wrong_diameter_active_stiffness_and_beta_stay_right_and_the_drag_ratio
     let mut beta = 0.0;
     let records = 60;
     for seed in 0..records {
-        let (x, _) = driven_nm(500 + seed, fd, amplitude, 1.0);
-        let cal = calibrate(
-            &volts(x),
-            &RunConditions::new(1.25e-6, 25.0),
-            &drive(fd, amplitude),
-        )
-        .expect("calibrates");
-        let axis = &cal.axes[0];
+        let axis = &driven_volt_axis(500 + seed, (fd, amplitude), 1.0, 1.25e-6);
         let act = axis.active.as_ref().expect("active");
         ratio += act.drag_ratio.value / records as f64;
         kappa += act.stiffness_pn_per_nm.expect("kappa").value / records as f64;
@@ -294,14 +297,7 @@ fn near_a_wall_the_drag_ratio_is_faxens_factor_and_the_finding_gives_the_height(
         let records = 40;
         let (mut ratio, mut se2) = (0.0, 0.0);
         for seed in 0..records {
-            let (x, _) = driven_nm(700 + seed, fd, amplitude, factor);
-            let cal = calibrate(
-                &volts(x),
-                &RunConditions::new(1.0e-6, 25.0),
-                &drive(fd, amplitude),
-            )
-            .expect("calibrates");
-            let axis = &cal.axes[0];
+            let axis = &driven_volt_axis(700 + seed, (fd, amplitude), factor, 1.0e-6);
             let act = axis.active.as_ref().expect("active");
             ratio += act.drag_ratio.value / records as f64;
             se2 += act.drag_ratio.se.powi(2) / (records * records) as f64;
