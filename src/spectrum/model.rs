@@ -356,7 +356,16 @@ impl SpectrumModel {
     /// nearly meets fc), and a filter, if any, fixed (a fitted one changes each image's gain
     /// with theta).
     pub(crate) fn tables_images(&self) -> bool {
-        self.aliasing && self.hydro.is_some() && !matches!(self.filter, FilterSetting::Fitted(_))
+        self.aliasing && self.hydro.is_some()
+    }
+
+    /// The filter whose gain the image sum applies per image at evaluation time: a fitted one
+    /// (its gain changes with theta, so it is not in the tabled weights; a fixed one is).
+    fn gain_at_evaluation<'p>(&self, p: &'p Params) -> Option<&'p DetectorFilter> {
+        match self.filter {
+            FilterSetting::Fitted(_) => p.filter.as_ref(),
+            _ => None,
+        }
     }
 
     /// The alias images of `f_hz` with what `signal_psd` computes of them that does not depend
@@ -414,6 +423,14 @@ impl SpectrumModel {
         self.image_sum(table.f_hz, p, table.images.iter().copied())
     }
 
+    /// The power gain of a fitted filter from f^2 (see [`DetectorFilter::gain`]), the form the
+    /// image sum applies to tabled and afresh images alike.
+    #[allow(clippy::suboptimal_flops)]
+    fn fitted_gain(filter: &DetectorFilter, f_squared: f64) -> f64 {
+        let a2 = filter.alpha * filter.alpha;
+        a2 + (1.0 - a2) / (f_squared / (filter.f3db_hz * filter.f3db_hz) + 1.0)
+    }
+
     /// The numerically aliased spectrum from the images of `f_hz` (see `psd_params`): each
     /// image's term is (D / pi^2) w / ((fc - f s - f^2/f_m)^2 + f^2 (1 + s)^2),
     /// w = (1 + s) g sinc^2 (the drag spectrum of Berg-Sorensen & Flyvbjerg 2004 written per
@@ -425,10 +442,15 @@ impl SpectrumModel {
     fn image_sum(&self, f_hz: f64, p: &Params, images: impl Iterator<Item = AliasImage>) -> f64 {
         let fc = p.fc;
         let fc_squared = fc * fc;
+        let fitted = self.gain_at_evaluation(p);
         let (mut drag_sum, mut lorentz_sum) = (0.0, 0.0);
         for image in images {
             let re = fc - image.shift;
-            drag_sum += image.weight / (re * re + image.damping_squared);
+            let weight = match fitted {
+                Some(filter) => image.weight * Self::fitted_gain(filter, image.f_squared),
+                None => image.weight,
+            };
+            drag_sum += weight / (re * re + image.damping_squared);
             lorentz_sum += image.box_gain / (fc_squared + image.f_squared);
         }
         let scale = p.d / (PI * PI);
@@ -462,7 +484,12 @@ impl SpectrumModel {
                 })
                 .sum();
         }
-        let filter = p.filter;
+        // A fixed filter's gain is in each image's weight; a fitted one's is applied in the sum
+        // (`gain_at_evaluation`), as for tabled images.
+        let filter = match self.filter {
+            FilterSetting::Fixed(_) => p.filter,
+            _ => None,
+        };
         let images =
             (-ALIAS_TERMS..=ALIAS_TERMS).map(|n| self.alias_image(f_hz, n, filter.as_ref()));
         self.image_sum(f_hz, p, images)

@@ -1071,6 +1071,13 @@ fn drag_models(fs: f64) -> Vec<SpectrumModel> {
             noise_floor: true,
             ..drag
         },
+        SpectrumModel {
+            filter: FilterSetting::Fitted(DetectorFilter {
+                f3db_hz: 7_000.0,
+                alpha: 0.4,
+            }),
+            ..drag
+        },
     ]
 }
 
@@ -1117,8 +1124,10 @@ fn tabled_image_sums_equal_the_image_sums_term_by_term() {
 }
 
 #[test]
-fn only_models_that_sum_images_with_theta_free_gains_are_tabled() {
-    // The closed form needs no table; a fitted filter changes each image's gain with theta.
+fn only_models_that_sum_images_are_tabled() {
+    // The closed form needs no table; a fitted filter is tabled without its gain, which the
+    // sum applies per image with theta (`tabled_image_sums_equal_the_image_sums_term_by_term`
+    // checks it bit for bit).
     let fs = 50_000.0;
     let drag = drag_models(fs)[0];
     assert!(ideal_model(fs).image_table(100.0).is_none());
@@ -1128,6 +1137,11 @@ fn only_models_that_sum_images_with_theta_free_gains_are_tabled() {
             alpha: 0.4,
         }),
         ..drag
+    };
+    assert!(fitted.image_table(100.0).is_some());
+    let fitted = SpectrumModel {
+        hydro: None,
+        ..fitted
     };
     assert!(fitted.image_table(100.0).is_none());
     assert!(
