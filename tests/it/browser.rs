@@ -1012,6 +1012,42 @@ async fn refused_uploads_show_the_service_problem_beside_the_field_or_file_conce
     server.stop().await;
 }
 
+/// Uploads `file` through the page's form with `fields` set (in order, the panel of more
+/// settings opened), and waits for a result other than `previous_id`; returns its id.
+async fn upload_with_the_form(
+    browser: &Browser,
+    server: &TestServer,
+    fields: &[(String, String)],
+    file: &Path,
+    previous_id: &str,
+    what: &str,
+) -> String {
+    browser.goto(&server.url("/#/")).await;
+    browser
+        .wait_for(
+            "the upload view",
+            "return !document.getElementById('view-upload').hidden;",
+        )
+        .await;
+    browser.open_more_settings().await;
+    for (k, v) in fields {
+        browser.set_field(k, v).await;
+    }
+    browser.pick_file(file).await;
+    browser.submit().await;
+    browser
+        .wait_for(
+            what,
+            &RESULT_ID.replace(
+                "return m &&",
+                &format!("return m && m[1] !== '{previous_id}' &&"),
+            ),
+        )
+        .await;
+    let id = browser.wait_for(what, RESULT_ID).await;
+    id.as_str().unwrap_or("").to_string()
+}
+
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data() {
     let _turn = ONE_BROWSER.lock().await;
@@ -1079,28 +1115,17 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     // 2. A driven recording (the stage drive's fields under "more settings"): the active
     // calibration's numbers are shown as the API gives them.
     let driven = demo(dir.path(), "driven.csv");
-    browser.goto(&server.url("/#/")).await;
-    browser
-        .wait_for(
-            "the upload view",
-            "return !document.getElementById('view-upload').hidden;",
-        )
-        .await;
-    browser.open_more_settings().await;
-    for (k, v) in driven.fields() {
-        browser.set_field(&k, &v).await;
-    }
-    browser.set_field("trap", "t3").await;
-    browser.pick_file(&driven.path).await;
-    browser.submit().await;
-    browser
-        .wait_for(
-            "the driven result",
-            &RESULT_ID.replace("return m &&", &format!("return m && m[1] !== '{id}' &&")),
-        )
-        .await;
-    let id_driven = browser.wait_for("the driven result", RESULT_ID).await;
-    let id_driven = id_driven.as_str().unwrap_or("").to_string();
+    let mut fields = driven.fields();
+    fields.push(("trap".into(), "t3".into()));
+    let id_driven = upload_with_the_form(
+        &browser,
+        &server,
+        &fields,
+        &driven.path,
+        &id,
+        "the driven result",
+    )
+    .await;
     let doc = api_json(&server, &format!("/api/v1/calibrations/{id_driven}")).await;
     let plots = api_json(&server, &format!("/api/v1/calibrations/{id_driven}/plots")).await;
     assert!(doc["result"]["axes"][0]["active"].is_object(), "{doc}");
@@ -1110,33 +1135,23 @@ async fn uploaded_demo_files_show_the_api_numbers_and_every_plot_draws_its_data(
     let id = id_driven;
 
     // 3. Volt data with three channels, picked with the file chooser: beta is shown.
-    browser.goto(&server.url("/#/")).await;
-    browser
-        .wait_for(
-            "the upload view",
-            "return !document.getElementById('view-upload').hidden;",
-        )
-        .await;
-    browser.open_more_settings().await;
     // The drive's fields are cleared so this upload is passive.
-    for k in ["drive_frequency_hz", "drive_amplitude_nm"] {
-        browser.set_field(k, "").await;
-    }
-    for (k, v) in volts.fields() {
-        browser.set_field(&k, &v).await;
-    }
-    browser.set_field("note", "").await;
-    browser.set_field("trap", "t2").await;
-    browser.pick_file(&volts.path).await;
-    browser.submit().await;
-    browser
-        .wait_for(
-            "the volts result",
-            &RESULT_ID.replace("return m &&", &format!("return m && m[1] !== '{id}' &&")),
-        )
-        .await;
-    let id2 = browser.wait_for("the volts result", RESULT_ID).await;
-    let id2 = id2.as_str().unwrap_or("").to_string();
+    let mut fields: Vec<(String, String)> = ["drive_frequency_hz", "drive_amplitude_nm"]
+        .iter()
+        .map(|k| (k.to_string(), String::new()))
+        .collect();
+    fields.extend(volts.fields());
+    fields.push(("note".into(), String::new()));
+    fields.push(("trap".into(), "t2".into()));
+    let id2 = upload_with_the_form(
+        &browser,
+        &server,
+        &fields,
+        &volts.path,
+        &id,
+        "the volts result",
+    )
+    .await;
     let doc = api_json(&server, &format!("/api/v1/calibrations/{id2}")).await;
     let plots = api_json(&server, &format!("/api/v1/calibrations/{id2}/plots")).await;
     assert_eq!(doc["result"]["input"]["unit"], "V");
