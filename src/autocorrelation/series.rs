@@ -65,10 +65,13 @@ fn lags_of(series: &LagSeries, n_lags: usize) -> Vec<f64> {
         } else {
             0.0
         };
-        exponentials_alive = series
-            .terms
-            .iter()
-            .any(|&(b, ln_q)| (b * (ln_q * (u - 1) as f64).exp()).abs() >= 1e-12 * scale);
+        // Once dead they stay dead: not evaluated again (a hydrodynamic tail runs on for
+        // hundreds of thousands of lags).
+        exponentials_alive = exponentials_alive
+            && series
+                .terms
+                .iter()
+                .any(|&(b, ln_q)| (b * (ln_q * (u - 1) as f64).exp()).abs() >= 1e-12 * scale);
         let rest = match (series.remainder.get(u - 1), series.tail) {
             (Some(r), _) => *r,
             (None, Some(tail)) => {

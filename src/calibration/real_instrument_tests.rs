@@ -347,3 +347,80 @@ fn a_photodiode_filter_left_out_is_named_by_a_finding_and_clean_records_do_not_r
     assert!(hits >= 19, "{hits} of 20 filtered records");
     assert!(false_alarms <= 2, "{false_alarms} of 40 clean records");
 }
+
+#[test]
+fn the_filter_screen_lets_through_every_record_whose_refit_would_name_a_filter() {
+    // The score test that screens the `filter-unmodelled` refit (Rao 1948) must never keep the
+    // refit from a record it would flag. Volt records (beta 300 nm/V) of 2^16 samples at
+    // 100 kHz of the aliased filtered Lorentzian (Berg-Sorensen & Flyvbjerg, Rev. Sci. Instrum.
+    // 75, 594 (2004); shared PHYSICS.md section 3) with weak filters, f3dB 8 kHz and alpha from
+    // 0.80 to 0.95, so that the refit's likelihood-ratio statistic straddles the finding's
+    // threshold 2 ln 1000; seed 43, 60 records, fitted without a filter and without the drag.
+    // Every record whose refit reaches the threshold must pass the screen; the test also needs
+    // both sides of the threshold to be reached (at least 5 records each), or it would pin
+    // nothing. And on 40 clean records (seed 44) the screen must skip the refit on most of them
+    // (the 0.9 quantile of chi-square with one degree of freedom, one-sided, at up to three
+    // starts: about 5-15 % pass; more than 20 of 40 would mean the screen saves nothing).
+    let fs = 100_000.0;
+    let beta = 300.0;
+    let options = AnalysisOptions {
+        hydrodynamics: false,
+        ..AnalysisOptions::default()
+    };
+    let conditions = RunConditions::new(1.0e-6, 25.0);
+    let physics = super::physics(&conditions).expect("valid conditions");
+    let threshold = 2.0 * crate::findings::MOTION_BLUR_LIKELIHOOD_RATIO.ln();
+    let stage_of = |rec: &Recording| {
+        let model = spectral::spectrum_model(fs, &conditions, &physics, &options);
+        let stage = spectral::spectral_stage("x", &rec.axes[0].samples, model, &options, None)
+            .expect("spectral stage");
+        let fit = stage.fit.expect("spectral fit");
+        let screened = crate::findings::filter_screen_passes(&fit, &stage.periodogram, fs);
+        let gain = crate::findings::filter_refit(&fit, &stage.periodogram, fs).map(|(g, _)| g);
+        (screened, gain)
+    };
+    let mut rng = generator(43);
+    let (mut flagged, mut unflagged) = (0, 0);
+    for i in 0..60 {
+        let filter = crate::spectrum::DetectorFilter {
+            f3db_hz: 8_000.0,
+            alpha: 0.15f64.mul_add(f64::from(i % 4) / 3.0, 0.80),
+        };
+        let rec = filtered_volt_record(&mut rng, 1 << 16, fs, filter, beta);
+        let (screened, gain) = stage_of(&rec);
+        if gain.is_some_and(|g| g >= threshold) {
+            flagged += 1;
+            assert!(
+                screened,
+                "record {i}: the refit gains {gain:?} but the screen held it back"
+            );
+        } else {
+            unflagged += 1;
+        }
+    }
+    let mut rng = generator(44);
+    let mut passed_clean = 0;
+    let (fc, d) = truth();
+    for _ in 0..40 {
+        let x = gaussian_record(
+            |f| aliased_lorentzian_one_sided(f, fc, d, fs),
+            fs,
+            1 << 16,
+            &mut rng,
+        );
+        let mut rec = one_axis(x.iter().map(|v| v / beta).collect(), fs);
+        rec.unit = PositionUnit::Volt;
+        passed_clean += usize::from(stage_of(&rec).0);
+    }
+    eprintln!(
+        "filter screen: {flagged} flagged and {unflagged} unflagged weak-filter records; {passed_clean} of 40 clean records passed the screen"
+    );
+    assert!(
+        flagged >= 5 && unflagged >= 5,
+        "{flagged} flagged, {unflagged} not"
+    );
+    assert!(
+        passed_clean <= 20,
+        "{passed_clean} of 40 clean records passed"
+    );
+}

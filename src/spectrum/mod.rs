@@ -28,6 +28,7 @@ pub(crate) use fit::fit_spectrum_from_theta;
 pub use fit::{
     FitRange, FlickerTerm, MIN_PARAMETER_RCOND, PlainLorentzianFit, SpectrumFit, SpectrumFitError,
     SpectrumFitOptions, fit_spectrum, likelihood_gain, likelihood_gain_from, plain_lorentzian_wls,
+    score_statistic,
 };
 pub use floor::{
     NOISE_FLOOR_CRITICAL_LR, NOISE_FLOOR_FALSE_INCLUSION, NoiseFloorLevel, NoiseFloorMode,
