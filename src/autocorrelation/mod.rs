@@ -164,8 +164,9 @@ pub struct AcfFitOptions {
     pub max_lags_used: usize,
     /// Variance sigma_n^2 of white detection noise in the record (signal-unit^2; default 0), as
     /// the spectral fit's noise floor gives it. It adds to lag 0 only, which the fit leaves out,
-    /// but it adds to the scatter of every sample autocovariance, so the plain exponential fit's
-    /// Bartlett weights include it (see `add_white_noise_covariance`).
+    /// but it adds to the scatter of every sample autocovariance, so the Bartlett weights of
+    /// both fits include it (the plain exponential's through `add_white_noise_covariance`, the
+    /// model fit's through the model's lag 0).
     pub white_noise_variance: f64,
 }
 

@@ -94,6 +94,7 @@ pub fn fit_autocovariance_model(
         lags: &lags,
         data: &data,
         n_samples,
+        white_noise_variance: options.white_noise_variance.max(0.0),
         evaluator: SeriesEvaluator::new(model, 2 * last_lag + 1, start_fc_hz),
     };
     let (theta, iterations) = problem.solve(start_fc_hz.ln(), start_diffusion.ln())?;
@@ -178,6 +179,9 @@ struct Problem<'a> {
     lags: &'a [usize],
     data: &'a [f64],
     n_samples: usize,
+    /// sigma_n^2 of white detection noise, signal-unit^2: in the weights only (see
+    /// `factorise`).
+    white_noise_variance: f64,
     evaluator: SeriesEvaluator,
 }
 
@@ -216,7 +220,23 @@ impl Problem<'_> {
     }
 
     /// Factorises the Bartlett covariance of `series`, raising the ridge if needed.
+    ///
+    /// White detection noise of variance sigma_n^2 makes the observed autocovariance
+    /// g(d) + sigma_n^2 [d = 0]; the Bartlett covariance (Isserlis' theorem, see
+    /// `LagSeries::autocovariance_covariance`) takes g(0) only through the series' lag 0, so
+    /// the noise enters the weights exactly by adding it there. The lags fitted (>= 1) keep
+    /// their expectation; the noise's share of the mean-removal bias, sigma_n^2 / N, is left
+    /// out of it (a relative 1/N of the noise).
     fn factorise(&self, series: &LagSeries) -> Option<Cholesky<f64, Dyn>> {
+        let noisy;
+        let series = if self.white_noise_variance > 0.0 {
+            let mut with_noise = series.clone();
+            with_noise.lag0 += self.white_noise_variance;
+            noisy = with_noise;
+            &noisy
+        } else {
+            series
+        };
         let mut ridge = 1e-12;
         while ridge <= 1e-6 {
             let cov = series.autocovariance_covariance(self.lags, self.n_samples, ridge);

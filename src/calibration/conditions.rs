@@ -70,11 +70,17 @@ pub(crate) fn axis_drag_stage(
         conditions.temperature_se_c,
         conditions.height_se_m,
     ];
-    let var_ln_gamma: f64 = dln_gamma
-        .iter()
-        .zip(&input_se)
-        .map(|(g, s)| (g * s).powi(2))
-        .sum();
+    // The viscosity's own error enters ln gamma with sensitivity 1 (gamma is proportional to
+    // eta), independent of the others.
+    let rel_viscosity = conditions.viscosity_se_pa_s / physics.viscosity_pa_s;
+    let var_ln_gamma: f64 = rel_viscosity.mul_add(
+        rel_viscosity,
+        dln_gamma
+            .iter()
+            .zip(&input_se)
+            .map(|(g, s)| (g * s).powi(2))
+            .sum::<f64>(),
+    );
     Ok(AxisDrag {
         orientation,
         wall_factor,
@@ -82,7 +88,7 @@ pub(crate) fn axis_drag_stage(
         var_ln_gamma,
         cov_ln_gamma_ln_t: dln_gamma[1] * dln_t * conditions.temperature_se_c.powi(2),
         var_ln_t: (dln_t * conditions.temperature_se_c).powi(2),
-        includes_input_errors: input_se.iter().any(|s| *s > 0.0),
+        includes_input_errors: input_se.iter().any(|s| *s > 0.0) || rel_viscosity > 0.0,
         source: DragSource::Assumed,
     })
 }

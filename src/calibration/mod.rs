@@ -71,6 +71,10 @@ pub struct RunConditions {
     pub temperature_se_c: f64,
     /// Viscosity override, Pa s; `None` computes water's from the temperature.
     pub viscosity_pa_s: Option<f64>,
+    /// Standard error of the viscosity, Pa s: of the override, or of water's formula (its
+    /// stated accuracy, which a user may enter here) when there is none. Independent of the
+    /// temperature's error.
+    pub viscosity_se_pa_s: f64,
     /// Height of the bead centre above the surface, m; `None` for bulk (no wall correction).
     pub height_m: Option<f64>,
     pub height_se_m: f64,
@@ -90,6 +94,7 @@ impl RunConditions {
             temperature_c,
             temperature_se_c: 0.0,
             viscosity_pa_s: None,
+            viscosity_se_pa_s: 0.0,
             height_m: None,
             height_se_m: 0.0,
             bead_density_kg_per_m3: drag::POLYSTYRENE_DENSITY_KG_PER_M3,
@@ -437,6 +442,7 @@ pub fn physics(conditions: &RunConditions) -> Result<Physics, CalibrationError> 
     }
     check_non_negative("bead_diameter_se_m", conditions.bead_diameter_se_m)?;
     check_non_negative("temperature_se_c", conditions.temperature_se_c)?;
+    check_non_negative("viscosity_se_pa_s", conditions.viscosity_se_pa_s)?;
     check_non_negative("height_se_m", conditions.height_se_m)?;
     check_positive("bead_density_kg_per_m3", conditions.bead_density_kg_per_m3)?;
     if let Some(v) = conditions.viscosity_pa_s {
@@ -475,7 +481,9 @@ pub fn physics(conditions: &RunConditions) -> Result<Physics, CalibrationError> 
     } else {
         0.0
     };
-    let rel_gamma0 = rel_d.hypot(dlneta_dt * conditions.temperature_se_c);
+    let rel_gamma0 = rel_d
+        .hypot(dlneta_dt * conditions.temperature_se_c)
+        .hypot(conditions.viscosity_se_pa_s / viscosity);
     Ok(Physics {
         viscosity_pa_s: viscosity,
         viscosity_from_water: conditions.viscosity_pa_s.is_none(),

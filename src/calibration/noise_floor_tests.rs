@@ -247,3 +247,50 @@ fn in_nanometres_equipartition_subtracts_the_floor_and_leaves_the_consensus() {
         "{off_bar} of {records} records missed the bar"
     );
 }
+
+#[test]
+fn with_the_drag_modelled_the_autocorrelation_fit_weighs_the_noise_floor_into_its_error() {
+    // The autocorrelation method under the drag model fits the model's autocovariance (the
+    // numerical transform of the aliased hydrodynamic spectrum, Berg-Sorensen & Flyvbjerg, Rev.
+    // Sci. Instrum. 75, 594 (2004)) with Bartlett weights; white noise adds sigma_n^2 to lag 0
+    // only, which the fit leaves out, but it adds to the scatter of every sample autocovariance
+    // (Isserlis' theorem), so the weights must include it or the reported se is too small.
+    // Exact records of that spectrum plus a white floor of 5 % of the bead's variance (shared
+    // PHYSICS.md section 12), 1 um polystyrene bead in water at 25 C, nm, 2^15 samples at
+    // 100 kHz, 300 records, seed 61. The z-scores (kappa_acf - truth) / se must have mean
+    // within 0.25 and sd within 0.83-1.20: the sd of a sample sd of 300 normal values is 0.041,
+    // so the bounds are more than 4 of it away (a correct estimator fails less than once in
+    // 1000), and the mean's bound is 4.3 of its 0.058.
+    let fs = 100_000.0;
+    let conditions = RunConditions::new(1.0e-6, 25.0);
+    let physics = super::physics(&conditions).expect("valid conditions");
+    let hydro = super::spectral::hydro_terms(&conditions, &physics);
+    let mut axis = reference_axis(0.05);
+    axis.hydrodynamics = Some(hydro);
+    let plan = axis.plan(fs, 1 << 15).expect("valid axis");
+    let options = AnalysisOptions {
+        hydrodynamics: true,
+        ..AnalysisOptions::default()
+    };
+    let mut rng = generator(61);
+    let records = 300;
+    let mut z = Vec::with_capacity(records);
+    for _ in 0..records {
+        let cal = calibrate(&one_axis(plan.record(&mut rng), fs), &conditions, &options)
+            .expect("calibrates");
+        let a = &cal.axes[0];
+        assert!(
+            a.noise_floor.expect("auto").test.included,
+            "the floor is found"
+        );
+        let acf = a
+            .stiffness_pn_per_nm
+            .acf
+            .expect("the autocorrelation fit stands");
+        z.push((acf.value - KAPPA_PN_PER_NM) / acf.se);
+    }
+    let (mean, sd) = mean_sd(&z);
+    eprintln!("acf with drag and a 5 % floor: z mean {mean:+.3}, sd {sd:.3} over {records}");
+    assert!(mean.abs() < 0.25, "z mean {mean}");
+    assert!((0.83..1.20).contains(&sd), "z sd {sd}");
+}

@@ -438,3 +438,40 @@ fn long_records_averaged_over_segments_keep_unbiased_estimates_and_honest_errors
     check_unbiased_and_honest("equipartition", &eq, KAPPA_PN_PER_NM);
     check_unbiased_and_honest("consensus", &cons, KAPPA_PN_PER_NM);
 }
+
+#[test]
+fn a_viscosity_error_adds_its_relative_variance_to_the_drag_methods_only() {
+    // kappa_psd = 2 pi gamma fc and kappa_acf = gamma / tau are proportional to the viscosity
+    // (Stokes: gamma = 6 pi eta R), so a relative viscosity error e adds e^2 kappa^2 to their
+    // variances exactly (first-order propagation, JCGM 100:2008 section 5.1), and equipartition
+    // in nm (kB T / var) does not depend on it. Here e = 1 %, the accuracy IAPWS 2008 states
+    // for liquid water at atmospheric pressure (as recalled), entered as the viscosity's
+    // standard error.
+    let rec = record(5, 1 << 16, None, &Disturbances::default());
+    let plain = calibrate(&rec, &conditions(), &AnalysisOptions::default()).expect("calibrates");
+    let eta = physics(&conditions())
+        .expect("valid conditions")
+        .viscosity_pa_s;
+    let mut with_error = conditions();
+    with_error.viscosity_se_pa_s = 0.01 * eta;
+    let widened = calibrate(&rec, &with_error, &AnalysisOptions::default()).expect("calibrates");
+    let (a, b) = (
+        &plain.axes[0].stiffness_pn_per_nm,
+        &widened.axes[0].stiffness_pn_per_nm,
+    );
+    for (name, before, after) in [("psd", a.psd, b.psd), ("acf", a.acf, b.acf)] {
+        let (before, after) = (before.expect("stands"), after.expect("stands"));
+        assert_eq!(before.value, after.value, "{name}: the value is unchanged");
+        let added = after.se.mul_add(after.se, -before.se.powi(2));
+        let want = (0.01 * before.value).powi(2);
+        assert!(
+            (added / want - 1.0).abs() < 1e-9,
+            "{name}: variance added {added:e}, want {want:e}"
+        );
+    }
+    let (before, after) = (
+        a.equipartition.expect("stands"),
+        b.equipartition.expect("stands"),
+    );
+    assert_eq!(before, after, "equipartition in nm does not use the drag");
+}

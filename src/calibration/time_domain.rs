@@ -65,24 +65,25 @@ pub(crate) fn time_domain_stage(
     // Every model the spectrum has, the autocorrelation fit has: with a filter or drag in the
     // spectral model, the autocovariance of that model (a sum of exponentials, or the numerical
     // transform of the hydrodynamic spectrum) is fitted, not a plain exponential.
+    // White noise leaves the lags the fit uses alone but adds to their scatter: the weights of
+    // either fit include it.
+    let acf_options = autocorrelation::AcfFitOptions {
+        white_noise_variance: account
+            .and_then(|a| a.noise_variance)
+            .map_or(0.0, |n| n.value),
+        ..options.acf.clone()
+    };
     let acf = match account.filter(|a| !a.is_plain()) {
         Some(a) => autocorrelation::fit_autocovariance_model(
             &acov,
             samples.len(),
             &a.model,
-            &options.acf,
+            &acf_options,
             a.corner_frequency_hz,
             a.diffusion,
         )
         .map(|fit| fit.decay),
         None => {
-            // White noise leaves the lags the fit uses alone but adds to their scatter.
-            let acf_options = autocorrelation::AcfFitOptions {
-                white_noise_variance: account
-                    .and_then(|a| a.noise_variance)
-                    .map_or(0.0, |n| n.value),
-                ..options.acf.clone()
-            };
             autocorrelation::fit_exponential(&acov, sample_rate_hz, samples.len(), &acf_options)
         }
     }

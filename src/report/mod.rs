@@ -152,6 +152,10 @@ pub struct ConditionsInfo {
     pub temperature_c: f64,
     pub temperature_se_c: f64,
     pub viscosity_mpa_s: f64,
+    /// Standard error of the viscosity, mPa s (0 when none was given; documents stored
+    /// before it existed read as 0).
+    #[serde(default)]
+    pub viscosity_se_mpa_s: f64,
     /// `water-iapws-2008` (computed from the temperature) or `given`.
     pub viscosity_source: String,
     pub height_um: Option<f64>,
@@ -530,6 +534,7 @@ pub fn build(
             temperature_c: conditions.temperature_c,
             temperature_se_c: conditions.temperature_se_c,
             viscosity_mpa_s: phys.viscosity_pa_s * 1e3,
+            viscosity_se_mpa_s: conditions.viscosity_se_pa_s * 1e3,
             viscosity_source: if phys.viscosity_from_water {
                 "water-iapws-2008".into()
             } else {

@@ -135,7 +135,7 @@ pub fn summary_table(r: &CalibrationReport) -> String {
     if r.axes.iter().any(|a| !a.errors_include_conditions) {
         let _ = writeln!(
             s,
-            "errors are statistical only: give --bead-diameter-se, --temperature-se or --height-se to include the run conditions"
+            "errors are statistical only: give --bead-diameter-se, --temperature-se, --viscosity-se or --height-se to include the run conditions"
         );
     }
     for a in &r.axes {

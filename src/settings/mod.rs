@@ -254,6 +254,7 @@ impl Settings {
         conditions.bead_diameter_se_m = self.number("bead_diameter_se_um").unwrap_or(0.0) * 1e-6;
         conditions.temperature_se_c = self.number("temperature_se_c").unwrap_or(0.0);
         conditions.viscosity_pa_s = self.number("viscosity_mpa_s").map(|v| v * 1e-3);
+        conditions.viscosity_se_pa_s = self.number("viscosity_se_mpa_s").unwrap_or(0.0) * 1e-3;
         conditions.height_m = self.number("height_um").map(|h| h * 1e-6);
         conditions.height_se_m = self.number("height_se_um").unwrap_or(0.0) * 1e-6;
         if let Some(rho) = self.choice("bead_material", parse_bead_material)? {

@@ -433,6 +433,21 @@ pub const SPECS: &[SettingSpec] = &[
         },
     },
     SettingSpec {
+        key: "viscosity_se_mpa_s",
+        label: "Viscosity standard error",
+        kind: Kind::Number(Range::NonNegative),
+        unit: "mPa·s",
+        help: "Standard error of the viscosity: of the value given, or of water's formula when \
+               none is given (IAPWS 2008 states about 1 % for liquid water at atmospheric \
+               pressure, as recalled); carried into the stiffness errors.",
+        absent: Absent::Default("0"),
+        example: "0.009",
+        flag: Flag::Value {
+            long: "viscosity-se",
+            value_name: "MPA_S",
+        },
+    },
+    SettingSpec {
         key: "height_um",
         label: "Height above the surface",
         kind: Kind::Number(Range::Positive),
