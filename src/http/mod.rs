@@ -325,6 +325,61 @@ pub async fn serve(
     shutdown: impl Future<Output = ()> + Send + 'static,
 ) -> std::io::Result<()> {
     metrics_handle();
+    // The heartbeat of this process's temporary upload files (see `store::blobs`).
+    let heartbeat = tokio::spawn(state.store().blobs().clone().heartbeat());
     let router = app(state.clone());
-    connections::run(listener, state, router, shutdown).await
+    let served = connections::run(listener, state, router, shutdown).await;
+    heartbeat.abort();
+    served
+}
+
+#[cfg(test)]
+mod tests {
+    use super::on_failure;
+    use axum::http::StatusCode;
+    use std::sync::{Arc, Mutex};
+    use std::time::Duration;
+    use tower_http::classify::ServerErrorsFailureClass;
+
+    /// The log lines `on_failure` writes for `class`, at every level.
+    fn logged(class: ServerErrorsFailureClass) -> String {
+        let buffer = Arc::new(Mutex::new(Vec::<u8>::new()));
+        let sink = Arc::clone(&buffer);
+        let subscriber = tracing_subscriber::fmt()
+            .with_max_level(tracing::Level::TRACE)
+            .with_ansi(false)
+            .with_writer(move || SharedWriter(Arc::clone(&sink)))
+            .finish();
+        tracing::subscriber::with_default(subscriber, || {
+            on_failure(class, Duration::from_millis(3), &tracing::Span::none());
+        });
+        let bytes = buffer.lock().map(|b| b.clone()).unwrap_or_default();
+        String::from_utf8_lossy(&bytes).into_owned()
+    }
+
+    struct SharedWriter(Arc<Mutex<Vec<u8>>>);
+
+    impl std::io::Write for SharedWriter {
+        fn write(&mut self, bytes: &[u8]) -> std::io::Result<usize> {
+            if let Ok(mut b) = self.0.lock() {
+                b.extend_from_slice(bytes);
+            }
+            Ok(bytes.len())
+        }
+        fn flush(&mut self) -> std::io::Result<()> {
+            Ok(())
+        }
+    }
+
+    #[test]
+    fn a_503_is_logged_as_a_warning_and_other_5xx_as_errors() {
+        let busy = logged(ServerErrorsFailureClass::StatusCode(
+            StatusCode::SERVICE_UNAVAILABLE,
+        ));
+        assert!(busy.contains("WARN") && !busy.contains("ERROR"), "{busy}");
+        let broken = logged(ServerErrorsFailureClass::StatusCode(
+            StatusCode::INTERNAL_SERVER_ERROR,
+        ));
+        assert!(broken.contains("ERROR"), "{broken}");
+    }
 }
