@@ -7,10 +7,15 @@
 //! (default 1 GiB), `TRAPWISE_MAX_CONCURRENT` (calibrations at once, default the number of
 //! cores), `TRAPWISE_QUEUE` (calibrations waiting beyond those, default 4),
 //! `TRAPWISE_REQUIRE_TOKENS` (`true` demands bearer tokens even on loopback),
-//! `TRAPWISE_UPLOAD_IDLE_S` (longest pause inside an upload body, default 60 s) and
-//! `TRAPWISE_LOG_FORMAT` (`text` or `json`). Command-line flags of `serve` override the first two.
+//! `TRAPWISE_UPLOAD_IDLE_S` (longest pause inside a request, headers or body, default 60 s),
+//! `TRAPWISE_MAX_UPLOADS` (uploads streaming to disk at once, default the calibrations running
+//! plus waiting), `TRAPWISE_MAX_CONNECTIONS_PER_CLIENT` (default 32),
+//! `TRAPWISE_TRUSTED_PROXIES` (comma-separated addresses of reverse proxies whose
+//! `X-Forwarded-For` names the client, default none), `TRAPWISE_SHUTDOWN_GRACE_S` (how long a
+//! stopping service lets requests in flight finish, default 30 s) and `TRAPWISE_LOG_FORMAT`
+//! (`text` or `json`). Command-line flags of `serve` override the first two.
 
-use std::net::SocketAddr;
+use std::net::{IpAddr, SocketAddr};
 use std::path::PathBuf;
 
 /// Default upload limit: 1 GiB.
@@ -19,6 +24,12 @@ pub const DEFAULT_MAX_UPLOAD_BYTES: u64 = 1 << 30;
 pub const DEFAULT_QUEUE: usize = 4;
 /// Default longest pause inside an upload body, seconds.
 pub const DEFAULT_UPLOAD_IDLE_S: u64 = 60;
+/// Default number of connections (or, behind a trusted proxy, requests) one client address may
+/// hold open at once: enough for a browser's six plus scripts uploading in parallel.
+pub const DEFAULT_MAX_CONNECTIONS_PER_CLIENT: usize = 32;
+/// Default grace period of a shutdown, seconds: requests in flight may finish within it,
+/// connections still open after it are closed.
+pub const DEFAULT_SHUTDOWN_GRACE_S: u64 = 30;
 /// Default listening address: loopback only, so the service may run without tokens.
 pub const DEFAULT_BIND: &str = "127.0.0.1:8080";
 /// Default data directory.
@@ -60,7 +71,47 @@ pub struct Config {
     pub queue: usize,
     pub require_tokens: bool,
     pub upload_idle_s: u64,
+    /// Uploads streaming to disk at once; more are answered 503 before their body is read.
+    pub max_uploads: usize,
+    pub max_connections_per_client: usize,
+    /// Peers whose `X-Forwarded-For` header is believed.
+    pub trusted_proxies: Vec<IpAddr>,
+    pub shutdown_grace_s: u64,
     pub log_format: LogFormat,
+}
+
+/// Parses a comma-separated list of IP addresses (blank: none).
+fn parse_addresses(name: &'static str, value: Option<String>) -> Result<Vec<IpAddr>, ConfigError> {
+    let Some(text) = value else {
+        return Ok(Vec::new());
+    };
+    text.split(',')
+        .map(str::trim)
+        .filter(|s| !s.is_empty())
+        .map(|s| {
+            s.parse().map_err(|_| ConfigError::BadValue {
+                name,
+                value: text.clone(),
+                expected: "comma-separated IP addresses such as 10.0.0.2,::1",
+            })
+        })
+        .collect()
+}
+
+/// Rejects 0 for a variable that counts something the service cannot do without.
+fn at_least_one(
+    name: &'static str,
+    value: usize,
+    expected: &'static str,
+) -> Result<usize, ConfigError> {
+    if value == 0 {
+        return Err(ConfigError::BadValue {
+            name,
+            value: "0".into(),
+            expected,
+        });
+    }
+    Ok(value)
 }
 
 fn parse<T: std::str::FromStr>(
@@ -133,6 +184,26 @@ impl Config {
                 expected: "a whole number of calibrations, at least 1",
             });
         }
+        let queue = parse(
+            "TRAPWISE_QUEUE",
+            lookup("TRAPWISE_QUEUE"),
+            DEFAULT_QUEUE,
+            "a whole number of waiting calibrations",
+        )?;
+        let uploads_expected = "a whole number of uploads, at least 1";
+        let max_uploads = parse(
+            "TRAPWISE_MAX_UPLOADS",
+            lookup("TRAPWISE_MAX_UPLOADS"),
+            max_concurrent + queue,
+            uploads_expected,
+        )?;
+        let connections_expected = "a whole number of connections, at least 1";
+        let max_connections_per_client = parse(
+            "TRAPWISE_MAX_CONNECTIONS_PER_CLIENT",
+            lookup("TRAPWISE_MAX_CONNECTIONS_PER_CLIENT"),
+            DEFAULT_MAX_CONNECTIONS_PER_CLIENT,
+            connections_expected,
+        )?;
         Ok(Config {
             data_dir: lookup("TRAPWISE_DATA_DIR")
                 .filter(|v| !v.trim().is_empty())
@@ -146,17 +217,28 @@ impl Config {
                 "a whole number of bytes such as 1073741824",
             )?,
             max_concurrent,
-            queue: parse(
-                "TRAPWISE_QUEUE",
-                lookup("TRAPWISE_QUEUE"),
-                DEFAULT_QUEUE,
-                "a whole number of waiting calibrations",
-            )?,
+            queue,
             require_tokens,
             upload_idle_s: parse(
                 "TRAPWISE_UPLOAD_IDLE_S",
                 lookup("TRAPWISE_UPLOAD_IDLE_S"),
                 DEFAULT_UPLOAD_IDLE_S,
+                "a whole number of seconds",
+            )?,
+            max_uploads: at_least_one("TRAPWISE_MAX_UPLOADS", max_uploads, uploads_expected)?,
+            max_connections_per_client: at_least_one(
+                "TRAPWISE_MAX_CONNECTIONS_PER_CLIENT",
+                max_connections_per_client,
+                connections_expected,
+            )?,
+            trusted_proxies: parse_addresses(
+                "TRAPWISE_TRUSTED_PROXIES",
+                lookup("TRAPWISE_TRUSTED_PROXIES"),
+            )?,
+            shutdown_grace_s: parse(
+                "TRAPWISE_SHUTDOWN_GRACE_S",
+                lookup("TRAPWISE_SHUTDOWN_GRACE_S"),
+                DEFAULT_SHUTDOWN_GRACE_S,
                 "a whole number of seconds",
             )?,
             log_format,

@@ -29,6 +29,10 @@ fn empty_environment_gives_the_documented_defaults() {
     assert_eq!(config.queue, 4);
     assert_eq!(config.upload_idle_s, 60);
     assert!(config.max_concurrent >= 1);
+    assert_eq!(config.max_uploads, config.max_concurrent + 4);
+    assert_eq!(config.max_connections_per_client, 32);
+    assert!(config.trusted_proxies.is_empty());
+    assert_eq!(config.shutdown_grace_s, 30);
     assert_eq!(config.log_format, LogFormat::Text);
     assert!(!config.tokens_required());
     assert_eq!(
@@ -56,8 +60,21 @@ fn variables_override_the_defaults() {
         ("TRAPWISE_MAX_CONCURRENT", "3"),
         ("TRAPWISE_QUEUE", "0"),
         ("TRAPWISE_LOG_FORMAT", "json"),
+        ("TRAPWISE_MAX_UPLOADS", "5"),
+        ("TRAPWISE_MAX_CONNECTIONS_PER_CLIENT", "2"),
+        ("TRAPWISE_TRUSTED_PROXIES", " 10.0.0.2, ::1 "),
+        ("TRAPWISE_SHUTDOWN_GRACE_S", "7"),
     ])
     .unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(config.max_uploads, 5);
+    assert_eq!(config.max_connections_per_client, 2);
+    let proxies: Vec<String> = config
+        .trusted_proxies
+        .iter()
+        .map(ToString::to_string)
+        .collect();
+    assert_eq!(proxies, ["10.0.0.2", "::1"]);
+    assert_eq!(config.shutdown_grace_s, 7);
     assert_eq!(config.database_url(), "postgres://trapwise@db/trapwise");
     assert_eq!(config.max_upload_bytes, 1000);
     assert_eq!((config.max_concurrent, config.queue), (3, 0));
@@ -81,6 +98,19 @@ fn malformed_values_name_their_variable() {
         "TRAPWISE_UPLOAD_IDLE_S",
     );
     check_error(&[("TRAPWISE_LOG_FORMAT", "xml")], "TRAPWISE_LOG_FORMAT");
+    check_error(&[("TRAPWISE_MAX_UPLOADS", "0")], "TRAPWISE_MAX_UPLOADS");
+    check_error(
+        &[("TRAPWISE_MAX_CONNECTIONS_PER_CLIENT", "0")],
+        "TRAPWISE_MAX_CONNECTIONS_PER_CLIENT",
+    );
+    check_error(
+        &[("TRAPWISE_TRUSTED_PROXIES", "10.0.0.2,proxy.lan")],
+        "TRAPWISE_TRUSTED_PROXIES",
+    );
+    check_error(
+        &[("TRAPWISE_SHUTDOWN_GRACE_S", "half a minute")],
+        "TRAPWISE_SHUTDOWN_GRACE_S",
+    );
     check_error(
         &[("TRAPWISE_REQUIRE_TOKENS", "maybe")],
         "TRAPWISE_REQUIRE_TOKENS",

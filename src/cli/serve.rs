@@ -86,13 +86,18 @@ async fn shutdown_signal() {
         () = ctrl_c => {},
         () = terminate => {},
     }
-    tracing::info!("shutting down: finishing requests in flight");
+    tracing::info!("shutting down: finishing requests in flight within the grace period");
 }
+
+/// How long the runtime waits, after the server stopped, for calibrations still running on the
+/// blocking pool (they cannot be interrupted; the process ends without them).
+const RUNTIME_SHUTDOWN: std::time::Duration = std::time::Duration::from_secs(1);
 
 pub(super) fn run(args: &ServeArgs) -> Result<u8, Failure> {
     let config = config(args.bind, args.data_dir.clone())?;
     init_logging(config.log_format);
-    runtime()?.block_on(async {
+    let runtime = runtime()?;
+    let outcome = runtime.block_on(async {
         let store = open_store(&config).await?;
         let options = ServiceOptions {
             max_upload_bytes: config.max_upload_bytes,
@@ -100,6 +105,10 @@ pub(super) fn run(args: &ServeArgs) -> Result<u8, Failure> {
             queue: config.queue,
             tokens_required: config.tokens_required(),
             upload_idle_s: config.upload_idle_s,
+            max_uploads: config.max_uploads,
+            max_connections_per_client: config.max_connections_per_client,
+            trusted_proxies: config.trusted_proxies.clone(),
+            shutdown_grace_s: config.shutdown_grace_s,
         };
         let listener = tokio::net::TcpListener::bind(config.bind)
             .await
@@ -130,5 +139,7 @@ pub(super) fn run(args: &ServeArgs) -> Result<u8, Failure> {
             .map_err(|e| Failure::new(1, anyhow!("server: {e}")))?;
         store.close().await;
         Ok(0)
-    })
+    });
+    runtime.shutdown_timeout(RUNTIME_SHUTDOWN);
+    outcome
 }

@@ -37,6 +37,11 @@ impl Admission {
         self.capacity
     }
 
+    /// Whether every slot and queue place is taken now (a request arriving would get 503).
+    pub fn is_full(&self) -> bool {
+        self.admitted.load(Ordering::SeqCst) >= self.capacity
+    }
+
     /// Calibrations admitted and waiting for a slot.
     pub fn queue_depth(&self) -> usize {
         let running = self

@@ -15,6 +15,15 @@ use axum::http::request::Parts;
 /// The lab a request acts for when the service runs open on loopback.
 pub const OPEN_LAB: &str = "local";
 
+/// The token of an `Authorization` value `Bearer <token>`. The scheme name is compared without
+/// regard to case (RFC 9110 section 11.1: the auth-scheme is case-insensitive), and is followed
+/// by one or more spaces; `None` for another scheme or an empty token.
+pub fn bearer_token(value: &str) -> Option<&str> {
+    let (scheme, rest) = value.trim_start().split_once(' ')?;
+    let token = rest.trim();
+    (scheme.eq_ignore_ascii_case("bearer") && !token.is_empty()).then_some(token)
+}
+
 /// The lab of the request.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct Lab(pub String);
@@ -42,17 +51,35 @@ impl FromRequestParts<AppState> for Lab {
         let text = value
             .to_str()
             .map_err(|_| bad("the value is not visible ASCII; send `Bearer <token>`"))?;
-        let secret = text
-            .strip_prefix("Bearer ")
-            .or_else(|| text.strip_prefix("bearer "))
-            .map(str::trim)
-            .filter(|s| !s.is_empty())
+        let secret = bearer_token(text)
             .ok_or_else(|| bad("expected the scheme `Bearer` followed by the token"))?;
         match state.store().lab_for_token(secret).await? {
             Some(lab) => Ok(Lab(lab)),
             None => Err(bad(
                 "the token is unknown or revoked; ask the facility for a new one",
             )),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::bearer_token;
+
+    #[test]
+    fn the_bearer_scheme_is_read_in_any_case() {
+        // RFC 9110 section 11.1: the auth-scheme is case-insensitive.
+        for value in ["Bearer abc", "bearer abc", "BEARER abc", "bEaReR   abc "] {
+            assert_eq!(bearer_token(value), Some("abc"), "{value}");
+        }
+        for value in [
+            "Basic abc",
+            "Bearer",
+            "Bearer   ",
+            "Bearerabc",
+            "Bearers abc",
+        ] {
+            assert_eq!(bearer_token(value), None, "{value}");
         }
     }
 }

@@ -2,8 +2,9 @@
 //!
 //! `app(state)` builds the whole `Router`, so tests can drive it without a socket; `serve`
 //! takes the listener and the shutdown signal from the caller, so end-to-end tests bind port 0
-//! and stop the server when they like. Shutdown is graceful: the listener closes, and requests
-//! in flight (uploads included) run to completion.
+//! and stop the server when they like. The server loop (`connections`) bounds what a client can
+//! hold: a header-read timeout, a number of connections per client address, and a shutdown that
+//! lets requests in flight finish within a grace period and then closes what is left.
 //!
 //! Routes (documented in the OpenAPI document at `/api/v1/openapi.json`):
 //! `POST /api/v1/calibrations`, `GET /api/v1/calibrations`, `GET /api/v1/calibrations/{id}`,
@@ -15,6 +16,8 @@
 pub mod admission;
 pub mod auth;
 mod calibrations;
+pub mod connections;
+mod idle;
 pub mod openapi;
 mod ops;
 mod page;
@@ -31,18 +34,21 @@ use axum::http::{HeaderValue, header};
 use axum::middleware::Next;
 use axum::response::{IntoResponse, Response};
 use axum::routing::get;
+use connections::ClientCounts;
 use metrics_exporter_prometheus::{PrometheusBuilder, PrometheusHandle};
 use problem::AppError;
 use std::future::Future;
+use std::net::IpAddr;
 use std::sync::{Arc, OnceLock};
-use std::time::Instant;
+use std::time::{Duration, Instant};
+use tokio::sync::Semaphore;
 use tower_http::request_id::{
     MakeRequestId, PropagateRequestIdLayer, RequestId, SetRequestIdLayer,
 };
 use tower_http::trace::TraceLayer;
 
 /// Limits and access policy of a running service.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[derive(Clone, Debug, PartialEq, Eq)]
 pub struct ServiceOptions {
     /// Largest recording accepted, bytes.
     pub max_upload_bytes: u64,
@@ -52,8 +58,17 @@ pub struct ServiceOptions {
     pub queue: usize,
     /// Whether every API request needs a bearer token.
     pub tokens_required: bool,
-    /// Longest pause inside an upload body before it is given up (408), seconds.
+    /// Longest pause inside an upload body before it is given up (408), seconds; also the
+    /// header-read timeout (at most 30 s, see `connections::header_read_timeout`).
     pub upload_idle_s: u64,
+    /// Uploads streaming to disk at once; one more is answered 503 before its body is read.
+    pub max_uploads: usize,
+    /// Connections one client address may hold open (through a trusted proxy: requests).
+    pub max_connections_per_client: usize,
+    /// Peers whose `X-Forwarded-For` header names the client.
+    pub trusted_proxies: Vec<IpAddr>,
+    /// How long a shutdown lets requests in flight finish before closing them, seconds.
+    pub shutdown_grace_s: u64,
 }
 
 /// State shared by all handlers (cheap to clone).
@@ -67,6 +82,8 @@ struct Inner {
     store: Store,
     options: ServiceOptions,
     admission: Arc<Admission>,
+    uploads: Arc<Semaphore>,
+    clients: Arc<ClientCounts>,
 }
 
 impl AppState {
@@ -75,8 +92,10 @@ impl AppState {
         AppState {
             inner: Arc::new(Inner {
                 store,
-                options,
                 admission: Admission::new(options.max_concurrent, options.queue),
+                uploads: Arc::new(Semaphore::new(options.max_uploads)),
+                clients: ClientCounts::new(options.max_connections_per_client),
+                options,
             }),
         }
     }
@@ -104,6 +123,31 @@ impl AppState {
     /// The calibration admission gate.
     pub fn admission(&self) -> &Arc<Admission> {
         &self.inner.admission
+    }
+
+    /// Uploads allowed to stream to disk at once.
+    pub fn max_uploads(&self) -> usize {
+        self.inner.options.max_uploads
+    }
+
+    /// The permits of uploads streaming to disk.
+    pub fn uploads(&self) -> &Arc<Semaphore> {
+        &self.inner.uploads
+    }
+
+    /// Connections (or forwarded requests) per client address.
+    pub fn clients(&self) -> &Arc<ClientCounts> {
+        &self.inner.clients
+    }
+
+    /// Peers whose `X-Forwarded-For` is believed.
+    pub fn trusted_proxies(&self) -> &[IpAddr] {
+        &self.inner.options.trusted_proxies
+    }
+
+    /// How long a shutdown waits for requests in flight.
+    pub fn shutdown_grace(&self) -> Duration {
+        Duration::from_secs(self.inner.options.shutdown_grace_s)
     }
 }
 
@@ -187,8 +231,29 @@ async fn method_not_allowed(request: Request) -> Response {
     response
 }
 
+/// Logs a failed response. A 503 is the service protecting itself (queue full, no upload
+/// place, database away, each logged where it is decided), not a fault, so it is logged at
+/// warning level; other 5xx and transport failures are errors.
+fn on_failure(
+    class: tower_http::classify::ServerErrorsFailureClass,
+    latency: Duration,
+    _span: &tracing::Span,
+) {
+    let latency_ms = latency.as_millis();
+    match class {
+        tower_http::classify::ServerErrorsFailureClass::StatusCode(status)
+            if status == axum::http::StatusCode::SERVICE_UNAVAILABLE =>
+        {
+            tracing::warn!(%status, latency_ms, "service unavailable");
+        }
+        class => tracing::error!(classification = %class, latency_ms, "response failed"),
+    }
+}
+
 /// The whole application.
 pub fn app(state: AppState) -> Router {
+    let forwarded =
+        axum::middleware::from_fn_with_state(state.clone(), connections::limit_forwarded_clients);
     let api = Router::new()
         .route(
             "/calibrations",
@@ -218,6 +283,7 @@ pub fn app(state: AppState) -> Router {
         .fallback(not_found)
         .method_not_allowed_fallback(method_not_allowed)
         .with_state(state)
+        .layer(forwarded)
         .layer(PropagateRequestIdLayer::x_request_id())
         .layer(
             TraceLayer::new_for_http()
@@ -236,7 +302,8 @@ pub fn app(state: AppState) -> Router {
                 })
                 .on_response(
                     tower_http::trace::DefaultOnResponse::new().level(tracing::Level::INFO),
-                ),
+                )
+                .on_failure(on_failure),
         )
         .layer(tower_http::catch_panic::CatchPanicLayer::custom(
             panic_response,
@@ -250,14 +317,69 @@ pub fn app(state: AppState) -> Router {
         )
 }
 
-/// Serves `state` on `listener` until `shutdown` resolves, then finishes the requests in flight.
+/// Serves `state` on `listener` until `shutdown` resolves, then lets the requests in flight
+/// finish for at most the grace period (`ServiceOptions::shutdown_grace_s`) and closes the rest.
 pub async fn serve(
     listener: tokio::net::TcpListener,
     state: AppState,
     shutdown: impl Future<Output = ()> + Send + 'static,
 ) -> std::io::Result<()> {
     metrics_handle();
-    axum::serve(listener, app(state))
-        .with_graceful_shutdown(shutdown)
-        .await
+    // The heartbeat of this process's temporary upload files (see `store::blobs`).
+    let heartbeat = tokio::spawn(state.store().blobs().clone().heartbeat());
+    let router = app(state.clone());
+    let served = connections::run(listener, state, router, shutdown).await;
+    heartbeat.abort();
+    served
+}
+
+#[cfg(test)]
+mod tests {
+    use super::on_failure;
+    use axum::http::StatusCode;
+    use std::sync::{Arc, Mutex};
+    use std::time::Duration;
+    use tower_http::classify::ServerErrorsFailureClass;
+
+    /// The log lines `on_failure` writes for `class`, at every level.
+    fn logged(class: ServerErrorsFailureClass) -> String {
+        let buffer = Arc::new(Mutex::new(Vec::<u8>::new()));
+        let sink = Arc::clone(&buffer);
+        let subscriber = tracing_subscriber::fmt()
+            .with_max_level(tracing::Level::TRACE)
+            .with_ansi(false)
+            .with_writer(move || SharedWriter(Arc::clone(&sink)))
+            .finish();
+        tracing::subscriber::with_default(subscriber, || {
+            on_failure(class, Duration::from_millis(3), &tracing::Span::none());
+        });
+        let bytes = buffer.lock().map(|b| b.clone()).unwrap_or_default();
+        String::from_utf8_lossy(&bytes).into_owned()
+    }
+
+    struct SharedWriter(Arc<Mutex<Vec<u8>>>);
+
+    impl std::io::Write for SharedWriter {
+        fn write(&mut self, bytes: &[u8]) -> std::io::Result<usize> {
+            if let Ok(mut b) = self.0.lock() {
+                b.extend_from_slice(bytes);
+            }
+            Ok(bytes.len())
+        }
+        fn flush(&mut self) -> std::io::Result<()> {
+            Ok(())
+        }
+    }
+
+    #[test]
+    fn a_503_is_logged_as_a_warning_and_other_5xx_as_errors() {
+        let busy = logged(ServerErrorsFailureClass::StatusCode(
+            StatusCode::SERVICE_UNAVAILABLE,
+        ));
+        assert!(busy.contains("WARN") && !busy.contains("ERROR"), "{busy}");
+        let broken = logged(ServerErrorsFailureClass::StatusCode(
+            StatusCode::INTERNAL_SERVER_ERROR,
+        ));
+        assert!(broken.contains("ERROR"), "{broken}");
+    }
 }

@@ -11,8 +11,9 @@
 //! Status codes (the one place they are decided): 400 malformed input, 401 missing or bad
 //! token, 404 unknown id (including another lab's), 408 upload stalled, 413 upload past the
 //! limit, 415 content type
-//! or file format not read, 422 data that parse but cannot be calibrated, 503 queue full or
-//! database down, 500 anything else.
+//! or file format not read, 422 data that parse but cannot be calibrated, 429 too many
+//! connections from one client, 503 queue full, too many uploads at once or database down,
+//! 500 anything else.
 
 use crate::calibration::CalibrationError;
 use crate::ingest::IngestError;
@@ -120,6 +121,27 @@ pub enum AppError {
         /// Seconds the client should wait.
         retry_after_s: u64,
     },
+    /// As many uploads as allowed are streaming to disk (503 with Retry-After).
+    #[error(
+        "{limit} uploads are on their way to disk already, the most the server takes at once; retry after {retry_after_s} s"
+    )]
+    TooManyUploads {
+        /// Uploads allowed at once.
+        limit: usize,
+        /// Seconds the client should wait.
+        retry_after_s: u64,
+    },
+    /// The client holds as many connections (or, through a trusted proxy, requests) as one
+    /// client may (429 with Retry-After).
+    #[error(
+        "this client already holds {limit} connections, the most one client may; close one or retry after {retry_after_s} s"
+    )]
+    TooManyConnections {
+        /// Connections allowed per client address.
+        limit: usize,
+        /// Seconds the client should wait.
+        retry_after_s: u64,
+    },
     /// The database cannot be reached (503).
     #[error("the database is not available; retry later")]
     Unavailable {
@@ -161,7 +183,10 @@ impl AppError {
             AppError::UnsupportedMediaType { .. } => StatusCode::UNSUPPORTED_MEDIA_TYPE,
             AppError::Stalled { .. } => StatusCode::REQUEST_TIMEOUT,
             AppError::Unprocessable { .. } => StatusCode::UNPROCESSABLE_ENTITY,
-            AppError::Busy { .. } | AppError::Unavailable { .. } => StatusCode::SERVICE_UNAVAILABLE,
+            AppError::TooManyConnections { .. } => StatusCode::TOO_MANY_REQUESTS,
+            AppError::Busy { .. }
+            | AppError::TooManyUploads { .. }
+            | AppError::Unavailable { .. } => StatusCode::SERVICE_UNAVAILABLE,
             AppError::Internal { .. } => StatusCode::INTERNAL_SERVER_ERROR,
         }
     }
@@ -177,6 +202,8 @@ impl AppError {
             AppError::TooLarge { .. } => "upload-too-large",
             AppError::Stalled { .. } => "upload-stalled",
             AppError::Busy { .. } => "busy",
+            AppError::TooManyConnections { .. } => "too-many-connections",
+            AppError::TooManyUploads { .. } => "uploads-busy",
             AppError::Unavailable { .. } => "database-unavailable",
             AppError::Internal { .. } => "internal",
         }
@@ -192,6 +219,8 @@ impl AppError {
             AppError::UnsupportedMediaType { .. } => "unsupported content type or file format",
             AppError::Unprocessable { .. } => "recording cannot be calibrated",
             AppError::Busy { .. } => "calibration queue full",
+            AppError::TooManyConnections { .. } => "too many connections",
+            AppError::TooManyUploads { .. } => "too many uploads at once",
             AppError::Unavailable { .. } => "database unavailable",
             AppError::Internal { .. } => "internal error",
         }
@@ -235,7 +264,9 @@ impl IntoResponse for AppError {
             HeaderValue::from_static("application/problem+json"),
         );
         match &self {
-            AppError::Busy { retry_after_s, .. } => {
+            AppError::Busy { retry_after_s, .. }
+            | AppError::TooManyUploads { retry_after_s, .. }
+            | AppError::TooManyConnections { retry_after_s, .. } => {
                 headers.insert(header::RETRY_AFTER, HeaderValue::from(*retry_after_s));
             }
             AppError::Unauthorized { .. } => {

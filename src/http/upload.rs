@@ -14,6 +14,7 @@
 
 use super::AppState;
 use super::auth::Lab;
+use super::idle::{BodyWatch, IdleBody};
 use super::problem::AppError;
 use super::wire::{AxisPlots, CalibrationDocument, PlotsDocument};
 use crate::pipeline;
@@ -25,6 +26,7 @@ use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use futures_util::StreamExt;
 use std::collections::BTreeMap;
+use std::sync::Arc;
 use std::time::Instant;
 
 /// Largest text field, bytes.
@@ -106,36 +108,52 @@ fn too_large(state: &AppState) -> AppError {
     }
 }
 
+fn busy(state: &AppState) -> AppError {
+    AppError::Busy {
+        capacity: state.admission().capacity(),
+        retry_after_s: RETRY_AFTER_S,
+    }
+}
+
 fn io_error(e: std::io::Error) -> AppError {
     AppError::internal(format!("upload temporary file: {e}"))
 }
 
-/// Streams `chunks` into a new blob file, enforcing the size limit.
-async fn stream_to_blob<S, E>(state: &AppState, chunks: &mut S) -> Result<StagedBlob, AppError>
+/// The error of a body read that failed: the stall when `watch` saw one (408), else `other`.
+fn body_error(state: &AppState, watch: &BodyWatch, other: AppError) -> AppError {
+    if watch.stalled() {
+        AppError::Stalled {
+            idle_s: state.upload_idle_s(),
+            byte_offset: watch.received_bytes(),
+        }
+    } else {
+        other
+    }
+}
+
+/// Streams `chunks` into a new blob file, enforcing the size limit. The idle limit is the
+/// body's own (`idle::IdleBody`), so a stall ends the stream with an error that `watch` names.
+async fn stream_to_blob<S, E>(
+    state: &AppState,
+    watch: &BodyWatch,
+    chunks: &mut S,
+) -> Result<StagedBlob, AppError>
 where
     S: futures_util::Stream<Item = Result<axum::body::Bytes, E>> + Unpin,
     E: std::fmt::Display,
 {
     let mut writer: BlobWriter = state.store().blobs().writer().await.map_err(io_error)?;
-    // An idle limit per chunk instead of a timeout over the whole upload: a slow link may take
-    // long for a large file, but a silent one holds a connection and a temporary file for nothing.
-    loop {
-        let idle_s = state.upload_idle_s();
-        let next = tokio::time::timeout(std::time::Duration::from_secs(idle_s), chunks.next());
-        let Ok(next) = next.await else {
-            return Err(AppError::Stalled {
-                idle_s,
-                byte_offset: writer.size_bytes(),
-            });
-        };
-        let Some(chunk) = next else { break };
-        let chunk = chunk.map_err(|e| AppError::BadRequest {
-            code: "body-read-failed",
-            detail: format!(
-                "request body, byte offset {}: {e}; send the file again",
-                writer.size_bytes()
-            ),
-            field: Some("file".into()),
+    while let Some(chunk) = chunks.next().await {
+        let chunk = chunk.map_err(|e| {
+            let failed = AppError::BadRequest {
+                code: "body-read-failed",
+                detail: format!(
+                    "request body, byte offset {}: {e}; send the file again",
+                    writer.size_bytes()
+                ),
+                field: Some("file".into()),
+            };
+            body_error(state, watch, failed)
         })?;
         if writer.size_bytes() + chunk.len() as u64 > state.max_upload_bytes() {
             return Err(too_large(state));
@@ -147,16 +165,19 @@ where
 
 /// Reads one text field, at most `MAX_FIELD_BYTES`.
 async fn field_text(
+    state: &AppState,
+    watch: &BodyWatch,
     name: &str,
     mut field: axum::extract::multipart::Field<'_>,
 ) -> Result<String, AppError> {
     let mut bytes = Vec::new();
     while let Some(chunk) = field.chunk().await.map_err(|e| {
-        AppError::bad_field(
+        let malformed = AppError::bad_field(
             "malformed-multipart",
             name,
             format!("form field `{name}`: {e}"),
-        )
+        );
+        body_error(state, watch, malformed)
     })? {
         if bytes.len() + chunk.len() > MAX_FIELD_BYTES {
             return Err(AppError::bad_field(
@@ -184,6 +205,7 @@ async fn field_text(
 /// Reads a multipart body: the `file` part to a blob, the rest as text pairs.
 async fn read_multipart(
     state: &AppState,
+    watch: &BodyWatch,
     request: Request,
     pairs: &mut Vec<(String, String)>,
 ) -> Result<(Option<StagedBlob>, Option<String>), AppError> {
@@ -198,14 +220,14 @@ async fn read_multipart(
     let mut staged = None;
     let mut part_file_name = None;
     loop {
-        let field = multipart
-            .next_field()
-            .await
-            .map_err(|e| AppError::BadRequest {
+        let field = multipart.next_field().await.map_err(|e| {
+            let malformed = AppError::BadRequest {
                 code: "malformed-multipart",
                 detail: format!("multipart body: {e}; check the boundary and the part headers"),
                 field: None,
-            })?;
+            };
+            body_error(state, watch, malformed)
+        })?;
         let Some(field) = field else { break };
         let name = field.name().unwrap_or("").to_string();
         if name == "file" {
@@ -225,7 +247,7 @@ async fn read_multipart(
                 }
             });
             let mut stream = Box::pin(stream);
-            let result = stream_to_blob(state, &mut stream).await;
+            let result = stream_to_blob(state, watch, &mut stream).await;
             drop(stream);
             match result {
                 Ok(blob) => staged = Some(blob),
@@ -245,7 +267,7 @@ async fn read_multipart(
                 field: None,
             });
         } else {
-            let text = field_text(&name, field).await?;
+            let text = field_text(state, watch, &name, field).await?;
             pairs.push((name, text));
         }
     }
@@ -420,9 +442,11 @@ fn document_response(status: StatusCode, doc: &CalibrationDocument) -> Result<Re
         (status = 400, description = "Malformed input", body = super::problem::Problem, content_type = "application/problem+json"),
         (status = 401, description = "Missing or bad token", body = super::problem::Problem, content_type = "application/problem+json"),
         (status = 413, description = "Upload too large", body = super::problem::Problem, content_type = "application/problem+json"),
+        (status = 408, description = "The client sent nothing for the idle limit", body = super::problem::Problem, content_type = "application/problem+json"),
         (status = 415, description = "Unknown content type or file format", body = super::problem::Problem, content_type = "application/problem+json"),
         (status = 422, description = "Parsed but cannot be calibrated", body = super::problem::Problem, content_type = "application/problem+json"),
-        (status = 503, description = "Calibration queue full (Retry-After)", body = super::problem::Problem, content_type = "application/problem+json"),
+        (status = 429, description = "Too many connections from this client (Retry-After)", body = super::problem::Problem, content_type = "application/problem+json"),
+        (status = 503, description = "Calibration queue full or too many uploads at once, answered before the body is read (Retry-After)", body = super::problem::Problem, content_type = "application/problem+json"),
     ),
     security((), ("bearer" = []))
 )]
@@ -478,11 +502,28 @@ pub(crate) async fn create(
     if form_limit_exceeded || (is_raw && raw_limit_exceeded) {
         return refuse(request, too_large(&state));
     }
+    // A full queue or too many uploads on their way to disk: say so before the body is read,
+    // instead of after the client spent minutes sending it.
+    if state.admission().is_full() {
+        return refuse(request, busy(&state));
+    }
+    let Ok(upload_permit) = Arc::clone(state.uploads()).try_acquire_owned() else {
+        let e = AppError::TooManyUploads {
+            limit: state.max_uploads(),
+            retry_after_s: RETRY_AFTER_S,
+        };
+        return refuse(request, e);
+    };
+    let watch = Arc::new(BodyWatch::default());
+    let (parts, body) = request.into_parts();
+    let idle = std::time::Duration::from_secs(state.upload_idle_s());
+    let body = IdleBody::new(body.into_data_stream(), idle, Arc::clone(&watch));
+    let request = Request::from_parts(parts, axum::body::Body::from_stream(body));
     let (staged, part_file_name) = if is_multipart {
-        read_multipart(&state, request, &mut pairs).await?
+        read_multipart(&state, &watch, request, &mut pairs).await?
     } else {
         let mut stream = request.into_body().into_data_stream();
-        match stream_to_blob(&state, &mut stream).await {
+        match stream_to_blob(&state, &watch, &mut stream).await {
             Ok(blob) => (Some(blob), None),
             Err(e) => {
                 if matches!(e, AppError::TooLarge { .. }) {
@@ -492,6 +533,7 @@ pub(crate) async fn create(
             }
         }
     };
+    drop(upload_permit);
     let staged = staged.ok_or_else(|| {
         AppError::bad_field(
             "missing-field",
@@ -524,10 +566,7 @@ pub(crate) async fn create(
         );
     }
 
-    let place = state.admission().try_enter().ok_or(AppError::Busy {
-        capacity: state.admission().capacity(),
-        retry_after_s: RETRY_AFTER_S,
-    })?;
+    let place = state.admission().try_enter().ok_or_else(|| busy(&state))?;
     let permit = place
         .slot()
         .await

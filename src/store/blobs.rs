@@ -5,9 +5,24 @@
 //! `<root>/recordings/<first two hex digits>/<sha256>` (`Blobs::commit`). The rename happens on
 //! one filesystem, so a blob is either absent or complete, and a dropped `StagedBlob` deletes its
 //! temporary file. With several replicas the root is a shared directory (see the README).
+//!
+//! A process that is killed leaves its temporary files behind. To tell them from uploads in
+//! flight, also on a folder shared by replicas on several hosts (where a process id or a lock
+//! means nothing to another host, and advisory locks are unreliable on network file systems),
+//! every live temporary file carries a heartbeat: the process that owns it sets its
+//! modification time to now every `HEARTBEAT` (`Blobs::touch_live`), from the moment it is
+//! created until it is committed or dropped, including while the upload waits in the queue or
+//! is calibrated. A temporary file not touched for `STALE_TEMPORARY_AGE` has no live owner and is
+//! deleted by the sweep (`Blobs::sweep_stale_temporaries`), run when a service opens the folder
+//! and at every heartbeat. What it cannot do: it relies on the hosts' clocks agreeing to well
+//! within `STALE_TEMPORARY_AGE` (the file system stores the time the owner set, the sweeper
+//! compares it with its own clock), and on a file system that keeps modification times; a
+//! process stopped (not killed) for longer than that age loses its temporary files.
 
 use sha2::{Digest, Sha256};
+use std::collections::HashSet;
 use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex, PoisonError};
 use tempfile::TempPath;
 use tokio::io::AsyncWriteExt;
 
@@ -15,6 +30,36 @@ use tokio::io::AsyncWriteExt;
 #[derive(Clone, Debug)]
 pub struct Blobs {
     root: PathBuf,
+    /// The temporary files this process owns now (see the heartbeat in the module docs).
+    live: Arc<Mutex<HashSet<PathBuf>>>,
+}
+
+/// Marks a temporary file as owned by this process while it lives.
+#[derive(Debug)]
+struct LiveMark {
+    live: Arc<Mutex<HashSet<PathBuf>>>,
+    path: PathBuf,
+}
+
+impl LiveMark {
+    fn new(live: &Arc<Mutex<HashSet<PathBuf>>>, path: &Path) -> Self {
+        live.lock()
+            .unwrap_or_else(PoisonError::into_inner)
+            .insert(path.to_path_buf());
+        LiveMark {
+            live: Arc::clone(live),
+            path: path.to_path_buf(),
+        }
+    }
+}
+
+impl Drop for LiveMark {
+    fn drop(&mut self) {
+        self.live
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner)
+            .remove(&self.path);
+    }
 }
 
 /// An upload being written to its temporary file.
@@ -24,6 +69,7 @@ pub struct BlobWriter {
     path: TempPath,
     hasher: Sha256,
     size_bytes: u64,
+    mark: LiveMark,
 }
 
 /// A complete upload in its temporary file, not yet committed.
@@ -34,6 +80,8 @@ pub struct StagedBlob {
     /// Length of the upload in bytes.
     pub size_bytes: u64,
     path: TempPath,
+    /// Dropped after the file (field order); a heartbeat in between skips the missing file.
+    _mark: LiveMark,
 }
 
 impl StagedBlob {
@@ -47,11 +95,13 @@ fn is_sha256_hex(s: &str) -> bool {
     s.len() == 64 && s.bytes().all(|b| matches!(b, b'0'..=b'9' | b'a'..=b'f'))
 }
 
-/// Age past which a temporary upload file is taken to be left over from a process that died
-/// (a crash, a kill, a power cut) and is deleted when a service opens the folder. Far longer
-/// than any upload takes, so that with several replicas sharing the folder one that starts
-/// never deletes another's upload in flight (common practice: sweep by age, not by owner).
-pub const STALE_TEMPORARY_AGE: std::time::Duration = std::time::Duration::from_secs(24 * 3600);
+/// How often a process touches its live temporary files (see the module docs).
+pub const HEARTBEAT: std::time::Duration = std::time::Duration::from_secs(60);
+
+/// Age of the last heartbeat past which a temporary upload file is taken to be left over from
+/// a process that died (a crash, a kill, a power cut) and is deleted. Ten heartbeats, so that a
+/// late heartbeat or clocks a few minutes apart never cost a live upload.
+pub const STALE_TEMPORARY_AGE: std::time::Duration = std::time::Duration::from_secs(600);
 
 /// Prefix of the temporary upload files; the sweep touches nothing else in `tmp/`.
 const TEMPORARY_PREFIX: &str = "upload-";
@@ -64,6 +114,7 @@ impl Blobs {
         std::fs::create_dir_all(root.join("tmp"))?;
         let blobs = Blobs {
             root: root.to_path_buf(),
+            live: Arc::default(),
         };
         match blobs.sweep_stale_temporaries(STALE_TEMPORARY_AGE, std::time::SystemTime::now()) {
             Ok(0) => {}
@@ -120,6 +171,54 @@ impl Blobs {
         Ok(removed)
     }
 
+    /// Sets the modification time of every temporary file this process owns to `now` (the
+    /// heartbeat) and returns how many it touched; a file that went meanwhile is skipped.
+    pub fn touch_live(&self, now: std::time::SystemTime) -> std::io::Result<usize> {
+        let paths: Vec<PathBuf> = self
+            .live
+            .lock()
+            .unwrap_or_else(PoisonError::into_inner)
+            .iter()
+            .cloned()
+            .collect();
+        let mut touched = 0;
+        for path in paths {
+            match std::fs::File::options().write(true).open(&path) {
+                Ok(file) => {
+                    file.set_modified(now)?;
+                    touched += 1;
+                }
+                Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+                Err(e) => return Err(e),
+            }
+        }
+        Ok(touched)
+    }
+
+    /// Runs the heartbeat for ever: every `HEARTBEAT`, touches the live temporary files and
+    /// sweeps the stale ones (of any process). Failures are logged; they cost disk space at
+    /// worst. Meant to be spawned once by the service and aborted when it stops.
+    pub async fn heartbeat(self) {
+        let mut ticks = tokio::time::interval(HEARTBEAT);
+        ticks.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+        loop {
+            ticks.tick().await;
+            let blobs = self.clone();
+            let beat = tokio::task::spawn_blocking(move || {
+                let now = std::time::SystemTime::now();
+                blobs.touch_live(now)?;
+                blobs.sweep_stale_temporaries(STALE_TEMPORARY_AGE, now)
+            })
+            .await;
+            match beat {
+                Ok(Ok(0)) => {}
+                Ok(Ok(n)) => tracing::info!(removed = n, "removed stale temporary upload files"),
+                Ok(Err(e)) => tracing::warn!(error = %e, "upload heartbeat failed"),
+                Err(e) => tracing::warn!(error = %e, "upload heartbeat task failed"),
+            }
+        }
+    }
+
     /// The folder holding the blobs and the temporary files.
     pub fn root(&self) -> &Path {
         &self.root
@@ -137,11 +236,13 @@ impl Blobs {
             .prefix(TEMPORARY_PREFIX)
             .tempfile_in(self.root.join("tmp"))?;
         let (file, path) = temp.into_parts();
+        let mark = LiveMark::new(&self.live, &path);
         Ok(BlobWriter {
             file: tokio::io::BufWriter::with_capacity(1 << 20, tokio::fs::File::from_std(file)),
             path,
             hasher: Sha256::new(),
             size_bytes: 0,
+            mark,
         })
     }
 
@@ -205,6 +306,7 @@ impl BlobWriter {
             sha256: format!("{:x}", self.hasher.finalize()),
             size_bytes: self.size_bytes,
             path: self.path,
+            _mark: self.mark,
         })
     }
 }
@@ -218,6 +320,35 @@ mod tests {
         let file = std::fs::File::create(path).expect("create");
         file.set_modified(SystemTime::now() - age)
             .expect("set mtime");
+    }
+
+    #[tokio::test]
+    async fn the_sweep_keeps_a_live_upload_and_removes_a_dead_one() {
+        let root = tempfile::tempdir().expect("temp dir");
+        let tmp = root.path().join("tmp");
+        // This process's upload, written an hour ago and waiting since (queued, calibrating).
+        let owner = Blobs::open(root.path()).expect("open");
+        let mut writer = owner.writer().await.expect("writer");
+        writer.write(b"time_s,x_nm\n").await.expect("write");
+        let staged = writer.finish().await.expect("finish");
+        let hour = Duration::from_secs(3600);
+        std::fs::File::options()
+            .write(true)
+            .open(staged.path())
+            .expect("open live")
+            .set_modified(SystemTime::now() - hour)
+            .expect("age live");
+        // A killed process's upload of the same age: nothing touches it any more.
+        file_with_age(&tmp.join("upload-dead"), hour);
+        // The owner's heartbeat, then another replica (or a restart) opening the folder.
+        assert_eq!(owner.touch_live(SystemTime::now()).expect("touch"), 1);
+        let other = Blobs::open(root.path()).expect("second open");
+        assert!(staged.path().exists(), "the live upload was swept");
+        assert!(!tmp.join("upload-dead").exists(), "the dead upload stayed");
+        assert_eq!(other.file_counts().expect("counts"), (0, 1));
+        // Once committed, the file is no longer the owner's to touch.
+        owner.commit(staged).await.expect("commit");
+        assert_eq!(owner.touch_live(SystemTime::now()).expect("touch"), 0);
     }
 
     #[test]

@@ -31,6 +31,11 @@ mod store;
 // operations endpoints, and the `upload` and `token` subcommands.
 mod service;
 
+// What one client can hold of the service, over raw sockets: header-read timeout, idle limit in
+// multipart bodies, connections per client (directly and through a trusted proxy), refusals
+// before the body, and a SIGTERM that ends the binary within the grace period.
+mod connections;
+
 // The page in headless Chromium over WebDriver against the real service: uploads by drop and
 // by file chooser, numbers equal to the API's, plots drawn, refused uploads' messages, the
 // laser-safety caution in view, history and overview; screenshots in test-output/screenshots.

@@ -1223,6 +1223,20 @@ async fn health_metrics_openapi_and_page_are_served(backend: Backend) {
     assert_eq!(status, 200);
     assert!(ct.starts_with("text/html"));
     assert!(String::from_utf8_lossy(&page).contains("Laser safety"));
+    // The page may not be framed by another site (clickjacking), and loads only its own files.
+    let response = server
+        .client
+        .get(server.url("/"))
+        .send()
+        .await
+        .expect("page");
+    let policy = response
+        .headers()
+        .get("content-security-policy")
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("");
+    assert!(policy.contains("frame-ancestors 'none'"), "{policy}");
+    assert!(policy.contains("default-src 'self'"), "{policy}");
     server.stop().await;
 }
 

@@ -140,6 +140,10 @@ pub(crate) fn options() -> ServiceOptions {
         queue: 8,
         tokens_required: false,
         upload_idle_s: 30,
+        max_uploads: 8,
+        max_connections_per_client: 32,
+        trusted_proxies: Vec::new(),
+        shutdown_grace_s: 30,
     }
 }
 
