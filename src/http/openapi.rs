@@ -3,7 +3,7 @@
 //! settings are added from the settings table (`SettingParameters`), one per row.
 
 use super::{calibrations, ops, problem, settings, upload, wire};
-use crate::settings::{Kind, Range, SPECS, SettingSpec, Value};
+use crate::settings::{Kind, SPECS, SettingSpec, Value};
 use utoipa::openapi::path::{Parameter, ParameterBuilder, ParameterIn};
 use utoipa::openapi::schema::{ObjectBuilder, Type};
 use utoipa::openapi::security::{HttpAuthScheme, HttpBuilder, SecurityScheme};
@@ -41,16 +41,14 @@ struct SettingParameters;
 fn setting_schema(spec: &SettingSpec) -> Schema {
     let builder = ObjectBuilder::new();
     let builder = match spec.kind {
-        Kind::Number(range) => {
-            let builder = builder.schema_type(Type::Number);
-            match range {
-                Range::Any => builder,
-                Range::Positive => builder.exclusive_minimum(Some(0.0)),
-                Range::NonNegative => builder.minimum(Some(0.0)),
-                Range::Within { min, max } => builder.minimum(Some(min)).maximum(Some(max)),
-            }
-        }
-        Kind::Count => builder.schema_type(Type::Integer).minimum(Some(1)),
+        Kind::Number(range) => builder
+            .schema_type(Type::Number)
+            .minimum(Some(range.min))
+            .maximum(Some(range.max)),
+        Kind::Count(range) => builder
+            .schema_type(Type::Integer)
+            .minimum(Some(range.min))
+            .maximum(Some(range.max)),
         Kind::Boolean => builder.schema_type(Type::Boolean),
         Kind::Choice(c) => builder
             .schema_type(Type::String)

@@ -31,6 +31,11 @@ mod store;
 // operations endpoints, and the `upload` and `token` subcommands.
 mod service;
 
+// The API's contract on both backends: every error a problem document with its own status,
+// settings out of range and bad names refused with the field, capped details, and the OpenAPI
+// document describing what the service answers.
+mod api_contract;
+
 // The page in headless Chromium over WebDriver against the real service: uploads by drop and
 // by file chooser, numbers equal to the API's, plots drawn, refused uploads' messages, the
 // laser-safety caution in view, history and overview; screenshots in test-output/screenshots.

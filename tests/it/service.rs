@@ -1284,7 +1284,7 @@ async fn the_settings_table_is_served_documented_and_taken_by_uploads(backend: B
         );
         let json_type = match spec.kind {
             Kind::Number(_) => "number",
-            Kind::Count => "integer",
+            Kind::Count(_) => "integer",
             Kind::Boolean => "boolean",
             Kind::Choice(_) | Kind::Filter | Kind::Names => "string",
         };
