@@ -417,19 +417,13 @@ fn document_response(status: StatusCode, doc: &CalibrationDocument) -> Result<Re
     path = "/api/v1/calibrations",
     tag = "calibrations",
     params(
-        ("instrument" = Option<String>, Query, description = "Instrument label (required, as query parameter or form field)"),
-        ("trap" = Option<String>, Query, description = "Trap label (required)"),
+        ("instrument" = String, Query, description = "Instrument label (required: here, or as a form field of a multipart body)"),
+        ("trap" = String, Query, description = "Trap label (required: here, or as a form field of a multipart body)"),
         ("note" = Option<String>, Query, description = "Operator note"),
         ("axes" = Option<String>, Query, description = "Comma-separated axis labels"),
         ("file_name" = Option<String>, Query, description = "File name, used for format detection"),
-        // The run settings follow, one per row of the settings table (`openapi::SettingParameters`).
-    ),
-    request_body(
-        description = "multipart/form-data with a `file` part and the same fields as text parts, or the raw recording as the body",
-        content(
-            (Vec<u8> = "application/octet-stream"),
-            (Vec<u8> = "multipart/form-data"),
-        )
+        // The run settings follow, one per row of the settings table (`openapi::SettingParameters`),
+        // and the two bodies (`openapi::UploadBody`).
     ),
     responses(
         (status = 201, description = "Calibrated and stored", body = CalibrationDocument),

@@ -428,6 +428,69 @@ async fn names_that_break_the_naming_rules_are_refused_with_the_field_or_place(b
     server.stop().await;
 }
 
+#[test]
+fn the_openapi_document_describes_the_upload_bodies_required_fields_and_every_error_status() {
+    let api: Value = serde_json::from_str(&trapwise::http::openapi::document_json()).expect("JSON");
+    let upload = &api["paths"]["/api/v1/calibrations"]["post"];
+    let body = &upload["requestBody"];
+    assert_eq!(body["required"], true);
+    let form = &body["content"]["multipart/form-data"]["schema"];
+    assert_eq!(form["properties"]["file"]["type"], "string", "{form}");
+    assert_eq!(form["properties"]["file"]["format"], "binary", "{form}");
+    let required: Vec<&str> = form["required"]
+        .as_array()
+        .map(|r| r.iter().filter_map(Value::as_str).collect())
+        .unwrap_or_default();
+    let mut expected = vec!["file", "instrument", "trap"];
+    for spec in trapwise::settings::SPECS {
+        assert!(
+            form["properties"][spec.key].is_object(),
+            "form lacks {}",
+            spec.key
+        );
+        if spec.required() {
+            expected.push(spec.key);
+        }
+    }
+    assert_eq!(required, expected);
+    let raw = &body["content"]["application/octet-stream"]["schema"];
+    assert_eq!(raw["format"], "binary", "{raw}");
+    assert_ne!(raw["type"], "array", "{raw}");
+    let params = upload["parameters"].as_array().cloned().unwrap_or_default();
+    for label in ["instrument", "trap"] {
+        let p = params
+            .iter()
+            .find(|p| p["name"] == label)
+            .expect("label parameter");
+        assert_eq!(p["required"], true, "{label}");
+    }
+    let limit = api["paths"]["/api/v1/calibrations"]["get"]["parameters"]
+        .as_array()
+        .and_then(|ps| ps.iter().find(|p| p["name"] == "limit").cloned())
+        .expect("limit");
+    assert_eq!(limit["schema"]["minimum"], 1, "{limit}");
+    assert_eq!(limit["schema"]["maximum"], 500, "{limit}");
+    // Every operation of the API documents the error answers it can give, as problems.
+    for (path, item) in api["paths"].as_object().expect("paths") {
+        for (method, operation) in item.as_object().expect("item") {
+            let mut codes = vec!["500", "503"];
+            if path.starts_with("/api/") {
+                codes.extend(["400", "401"]);
+            }
+            if path.contains('{') {
+                codes.push("404");
+            }
+            for code in codes {
+                let content = &operation["responses"][code]["content"]["application/problem+json"];
+                assert!(
+                    content.is_object(),
+                    "{method} {path} does not document {code}"
+                );
+            }
+        }
+    }
+}
+
 on_both_backends!(
     settings_outside_their_range_are_400_naming_the_field,
     names_that_break_the_naming_rules_are_refused_with_the_field_or_place,
