@@ -348,8 +348,8 @@ fn values_outside_a_rows_range_are_refused_by_resolve_naming_the_key() {
             continue;
         };
         // Just outside each end (a count's lower end, 1, is refused by parsing already).
-        let below = range.min - range.min.abs().max(1.0) * 0.5;
-        let above = range.max + range.max.abs().max(1.0) * 0.5;
+        let below = range.min.abs().max(1.0).mul_add(-0.5, range.min);
+        let above = range.max.abs().max(1.0).mul_add(0.5, range.max);
         for outside in [below, above] {
             let text = match s.kind {
                 Kind::Count(_) if outside < 1.0 => continue,
