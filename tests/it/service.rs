@@ -593,11 +593,12 @@ fn bad_cases(good_csv: &[u8]) -> Vec<BadCase> {
             "water out of range",
             "run.csv",
             good_csv,
-            with(&[("temperature_c", "250")]),
+            // Within the setting's range, beyond the water model's 0 to 99 °C.
+            with(&[("temperature_c", "120")]),
             422,
             "viscosity-unavailable",
             Some("temperature_c"),
-            "250",
+            "120",
         ),
         case(
             "negative bead diameter",
@@ -607,7 +608,7 @@ fn bad_cases(good_csv: &[u8]) -> Vec<BadCase> {
             400,
             "invalid-field",
             Some("bead_diameter_um"),
-            "positive",
+            "expected a number from 0.01 to 100",
         ),
         case(
             "npy without a sample rate",
