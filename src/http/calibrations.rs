@@ -152,7 +152,7 @@ pub(crate) async fn one(
         ("trap" = Option<String>, Query, description = "Only this trap"),
         ("from_ms" = Option<i64>, Query, description = "Stored at or after, ms since the Unix epoch"),
         ("to_ms" = Option<i64>, Query, description = "Stored before, ms since the Unix epoch"),
-        ("limit" = Option<u32>, Query, description = "Page size, 1 to 500 (default 50)"),
+        ("limit" = Option<u32>, Query, minimum = 1, maximum = 500, description = "Page size, 1 to 500 (default 50)"),
         ("cursor" = Option<String>, Query, description = "`next_cursor` of the previous page"),
     ),
     responses(
@@ -335,7 +335,7 @@ pub(crate) async fn traps(
         ("trap" = String, Path, description = "Trap label"),
         ("from_ms" = Option<i64>, Query, description = "Stored at or after, ms since the Unix epoch"),
         ("to_ms" = Option<i64>, Query, description = "Stored before, ms since the Unix epoch"),
-        ("limit" = Option<u32>, Query, description = "At most this many calibrations, oldest first (default 1000, at most 10000)"),
+        ("limit" = Option<u32>, Query, minimum = 1, maximum = 10000, description = "At most this many calibrations, oldest first (default 1000, at most 10000)"),
     ),
     responses(
         (status = 200, body = TrapHistory),

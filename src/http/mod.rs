@@ -215,20 +215,11 @@ async fn not_found(request: Request) -> AppError {
     }
 }
 
-async fn method_not_allowed(request: Request) -> Response {
-    let mut response = AppError::BadRequest {
-        code: "method-not-allowed",
-        detail: format!(
-            "method {} is not allowed at `{}`; see {}/openapi.json",
-            request.method(),
-            request.uri().path(),
-            wire::API
-        ),
-        field: None,
+async fn method_not_allowed(request: Request) -> AppError {
+    AppError::MethodNotAllowed {
+        method: request.method().to_string(),
+        path: request.uri().path().to_string(),
     }
-    .into_response();
-    *response.status_mut() = axum::http::StatusCode::METHOD_NOT_ALLOWED;
-    response
 }
 
 /// Logs a failed response. A 503 is the service protecting itself (queue full, no upload
@@ -305,6 +296,7 @@ pub fn app(state: AppState) -> Router {
                 )
                 .on_failure(on_failure),
         )
+        .layer(axum::middleware::from_fn(problem::problem_for_bare_errors))
         .layer(tower_http::catch_panic::CatchPanicLayer::custom(
             panic_response,
         ))

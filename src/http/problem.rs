@@ -9,23 +9,43 @@
 //! is hidden from the client.
 //!
 //! Status codes (the one place they are decided): 400 malformed input, 401 missing or bad
-//! token, 404 unknown id (including another lab's), 408 upload stalled, 413 upload past the
-//! limit, 415 content type
+//! token, 404 unknown id (including another lab's), 405 method not allowed, 408 upload stalled,
+//! 413 upload past the limit, 415 content type
 //! or file format not read, 422 data that parse but cannot be calibrated, 429 too many
 //! connections from one client, 503 queue full, too many uploads at once or database down,
 //! 500 anything else.
+//!
+//! Answers that do not come from an `AppError` (the rejections of axum's extractors, such as a
+//! path segment that is not UTF-8) are rewritten by `problem_for_bare_errors`, a middleware
+//! around the whole application, into a problem document with the same status, so that every
+//! error the service gives is one. The `detail` is capped at `MAX_DETAIL_CHARS`, because some
+//! details quote the input (a header line, a field's value).
 
 use crate::calibration::CalibrationError;
 use crate::ingest::IngestError;
 use crate::pipeline::PipelineError;
 use crate::settings::SettingsError;
 use crate::store::StoreError;
+use axum::extract::Request;
 use axum::http::{HeaderValue, StatusCode, header};
+use axum::middleware::Next;
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
 /// Base of the problem `type` URIs.
 pub const PROBLEM_BASE: &str = "https://trapwise.invalid/problems/";
+
+/// Longest `detail`, characters: enough for a message with its place and hint, short enough
+/// that a detail quoting the input (a megabyte header line) is not sent back whole.
+pub const MAX_DETAIL_CHARS: usize = 1000;
+
+/// Longest `field` member, characters (a setting's key is far shorter; an unknown field's
+/// name is whatever the client sent).
+const MAX_FIELD_CHARS: usize = 200;
+
+/// Most bytes of a bare error body read to become a problem's detail (see
+/// `problem_for_bare_errors`); axum's rejection texts are far shorter.
+const MAX_BARE_BODY_BYTES: usize = 16 * 1024;
 
 /// An RFC 9457 problem document as sent on the wire.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize, utoipa::ToSchema)]
@@ -71,6 +91,23 @@ pub enum AppError {
     #[error("{detail}")]
     NotFound {
         /// This occurrence.
+        detail: String,
+    },
+    /// The route exists but not for this method (405).
+    #[error("method {method} is not allowed at `{path}`; see /api/v1/openapi.json")]
+    MethodNotAllowed {
+        /// The request's method.
+        method: String,
+        /// The request's path.
+        path: String,
+    },
+    /// An answer made outside the handlers (an extractor's rejection of axum, with its own
+    /// status and text), turned into a problem document by `problem_for_bare_errors`.
+    #[error("{detail}")]
+    Rejected {
+        /// The status the rejection chose (4xx or 5xx).
+        status: StatusCode,
+        /// The rejection's text.
         detail: String,
     },
     /// The upload is larger than the configured limit (413).
@@ -179,6 +216,8 @@ impl AppError {
             AppError::BadRequest { .. } => StatusCode::BAD_REQUEST,
             AppError::Unauthorized { .. } => StatusCode::UNAUTHORIZED,
             AppError::NotFound { .. } => StatusCode::NOT_FOUND,
+            AppError::MethodNotAllowed { .. } => StatusCode::METHOD_NOT_ALLOWED,
+            AppError::Rejected { status, .. } => *status,
             AppError::TooLarge { .. } => StatusCode::PAYLOAD_TOO_LARGE,
             AppError::UnsupportedMediaType { .. } => StatusCode::UNSUPPORTED_MEDIA_TYPE,
             AppError::Stalled { .. } => StatusCode::REQUEST_TIMEOUT,
@@ -199,6 +238,8 @@ impl AppError {
             | AppError::UnsupportedMediaType { code, .. }
             | AppError::Unprocessable { code, .. } => code,
             AppError::NotFound { .. } => "not-found",
+            AppError::MethodNotAllowed { .. } => "method-not-allowed",
+            AppError::Rejected { status, .. } => rejection_code(*status),
             AppError::TooLarge { .. } => "upload-too-large",
             AppError::Stalled { .. } => "upload-stalled",
             AppError::Busy { .. } => "busy",
@@ -211,6 +252,10 @@ impl AppError {
 
     fn title(&self) -> &'static str {
         match self {
+            AppError::MethodNotAllowed { .. } => "method not allowed",
+            AppError::Rejected { status, .. } => {
+                status.canonical_reason().unwrap_or("request refused")
+            }
             AppError::BadRequest { .. } => "malformed input",
             AppError::Unauthorized { .. } => "missing or invalid bearer token",
             AppError::NotFound { .. } => "not found",
@@ -235,17 +280,87 @@ impl AppError {
         }
     }
 
-    /// The problem document.
+    /// The problem document, its detail capped at `MAX_DETAIL_CHARS`.
     pub fn problem(&self) -> Problem {
         Problem {
             type_uri: format!("{PROBLEM_BASE}{}", self.code()),
             title: self.title().to_string(),
             status: self.status().as_u16(),
-            detail: self.to_string(),
+            detail: cap_detail(&self.to_string()),
             code: self.code().to_string(),
-            field: self.field(),
+            // An unknown field's name is the client's text, so it is capped too.
+            field: self.field().map(|f| cap_chars(&f, MAX_FIELD_CHARS)),
         }
     }
+}
+
+/// `text` cut to `MAX_DETAIL_CHARS` characters, saying how much was left out.
+pub fn cap_detail(text: &str) -> String {
+    cap_chars(text, MAX_DETAIL_CHARS)
+}
+
+/// `text` cut to `max_chars` characters, saying how much was left out.
+fn cap_chars(text: &str, max_chars: usize) -> String {
+    match text.char_indices().nth(max_chars) {
+        None => text.to_string(),
+        Some((cut, _)) => format!(
+            "{}... ({} more characters left out)",
+            &text[..cut],
+            text[cut..].chars().count()
+        ),
+    }
+}
+
+/// The problem code of a bare answer of status `status` (see `problem_for_bare_errors`).
+fn rejection_code(status: StatusCode) -> &'static str {
+    match status {
+        StatusCode::BAD_REQUEST => "malformed-request",
+        StatusCode::NOT_FOUND => "not-found",
+        StatusCode::METHOD_NOT_ALLOWED => "method-not-allowed",
+        StatusCode::REQUEST_TIMEOUT => "upload-stalled",
+        StatusCode::PAYLOAD_TOO_LARGE => "upload-too-large",
+        StatusCode::UNSUPPORTED_MEDIA_TYPE => "unsupported-media-type",
+        StatusCode::UNPROCESSABLE_ENTITY => "unprocessable",
+        StatusCode::SERVICE_UNAVAILABLE => "unavailable",
+        s if s.is_server_error() => "internal",
+        _ => "request-refused",
+    }
+}
+
+/// Middleware: an error answer (4xx or 5xx) that is not already a problem document (the
+/// rejections of axum's extractors answer `text/plain`) becomes one with the same status and
+/// headers, its text the detail (hidden for 5xx, like every 5xx's).
+pub async fn problem_for_bare_errors(request: Request, next: Next) -> Response {
+    let response = next.run(request).await;
+    let status = response.status();
+    let is_problem = response
+        .headers()
+        .get(header::CONTENT_TYPE)
+        .is_some_and(|v| v.as_bytes().starts_with(b"application/problem+json"));
+    if !(status.is_client_error() || status.is_server_error()) || is_problem {
+        return response;
+    }
+    let (parts, body) = response.into_parts();
+    let text = axum::body::to_bytes(body, MAX_BARE_BODY_BYTES)
+        .await
+        .map(|b| String::from_utf8_lossy(&b).trim().to_string())
+        .unwrap_or_default();
+    let detail = if status.is_server_error() {
+        // Like every 5xx, the cause is logged and not sent.
+        tracing::error!(%status, reason = %text, "bare error answer");
+        "the server could not answer this request; retry later".to_string()
+    } else if text.is_empty() {
+        format!("the request was refused ({status})")
+    } else {
+        text
+    };
+    let mut problem = AppError::Rejected { status, detail }.into_response();
+    for (name, value) in &parts.headers {
+        if name != header::CONTENT_TYPE && name != header::CONTENT_LENGTH {
+            problem.headers_mut().insert(name, value.clone());
+        }
+    }
+    problem
 }
 
 impl IntoResponse for AppError {

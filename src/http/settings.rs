@@ -15,6 +15,7 @@ use axum::extract::RawQuery;
 #[utoipa::path(
     get,
     path = "/api/v1/settings",
+    operation_id = "list_settings",
     tag = "calibrations",
     responses(
         (status = 200, body = SettingsDocument),

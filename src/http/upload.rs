@@ -34,7 +34,7 @@ const MAX_FIELD_BYTES: usize = 64 * 1024;
 /// Slack for multipart framing and text fields in the early Content-Length check, bytes.
 const FORM_OVERHEAD_BYTES: u64 = 1 << 20;
 /// Longest label, characters.
-const MAX_LABEL_CHARS: usize = 200;
+const MAX_LABEL_CHARS: usize = crate::recording::MAX_NAME_CHARS;
 /// Most bytes read and discarded after refusing an upload (see `linger`).
 const LINGER_BYTES: usize = 16 << 20;
 /// Longest time spent discarding them, seconds.
@@ -307,7 +307,21 @@ fn required_label(map: &BTreeMap<String, String>, name: &str) -> Result<String, 
             format!("field `{name}` is required: name the {name} this recording comes from"),
         ));
     }
+    check_name(name, &value)?;
     Ok(value)
+}
+
+/// A label that names something (an instrument, a trap, an axis) follows the rules of every
+/// stored name, `recording::name_fault`, the same as axis names from a file's header.
+fn check_name(field: &str, value: &str) -> Result<(), AppError> {
+    match crate::recording::name_fault(value) {
+        None => Ok(()),
+        Some(fault) => Err(AppError::bad_field(
+            "invalid-field",
+            field,
+            format!("field `{field}`: {fault}"),
+        )),
+    }
 }
 
 /// The file name without directories, or `upload` when none was given.
@@ -354,11 +368,14 @@ fn split_fields(
             settings.apply(key, value)?;
         }
     }
-    let axes = check_label("axes", map.get("axes").map_or("", String::as_str))?
+    let axes: Vec<String> = check_label("axes", map.get("axes").map_or("", String::as_str))?
         .split(',')
         .map(|s| s.trim().to_string())
         .filter(|s| !s.is_empty())
         .collect();
+    for axis in &axes {
+        check_name("axes", axis)?;
+    }
     let file_name = match map.get("file_name") {
         Some(n) => clean_file_name(Some(n)),
         None => clean_file_name(part_file_name.as_deref()),
@@ -422,19 +439,13 @@ fn document_response(status: StatusCode, doc: &CalibrationDocument) -> Result<Re
     path = "/api/v1/calibrations",
     tag = "calibrations",
     params(
-        ("instrument" = Option<String>, Query, description = "Instrument label (required, as query parameter or form field)"),
-        ("trap" = Option<String>, Query, description = "Trap label (required)"),
+        ("instrument" = String, Query, description = "Instrument label (required: here, or as a form field of a multipart body)"),
+        ("trap" = String, Query, description = "Trap label (required: here, or as a form field of a multipart body)"),
         ("note" = Option<String>, Query, description = "Operator note"),
         ("axes" = Option<String>, Query, description = "Comma-separated axis labels"),
         ("file_name" = Option<String>, Query, description = "File name, used for format detection"),
-        // The run settings follow, one per row of the settings table (`openapi::SettingParameters`).
-    ),
-    request_body(
-        description = "multipart/form-data with a `file` part and the same fields as text parts, or the raw recording as the body",
-        content(
-            (Vec<u8> = "application/octet-stream"),
-            (Vec<u8> = "multipart/form-data"),
-        )
+        // The run settings follow, one per row of the settings table (`openapi::SettingParameters`),
+        // and the two bodies (`openapi::UploadBody`).
     ),
     responses(
         (status = 201, description = "Calibrated and stored", body = CalibrationDocument),

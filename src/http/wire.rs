@@ -179,9 +179,16 @@ pub struct SettingEntry {
     /// The canonical names of a choice (other spellings of them are accepted too).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub choices: Option<Vec<String>>,
-    /// The plausible range of a number in words (`positive`, `zero or positive`).
+    /// The plausible range of a number or count in words (`a number from 1 to 1e9`); values
+    /// outside it are refused with 400 naming the setting.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub range: Option<String>,
+    /// The smallest accepted value of a number or count, in its unit.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub minimum: Option<f64>,
+    /// The largest accepted value of a number or count, in its unit.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub maximum: Option<f64>,
     /// A valid value, other than the default.
     pub example: String,
     /// The command-line flag of `calibrate` and `upload` (`--bead-diameter UM`, or a bare
@@ -198,7 +205,7 @@ pub struct SettingsDocument {
 impl From<&SettingSpec> for SettingEntry {
     fn from(spec: &SettingSpec) -> Self {
         let range = match spec.kind {
-            Kind::Number(range) => range.describe(),
+            Kind::Number(range) | Kind::Count(range) => Some(range),
             _ => None,
         };
         SettingEntry {
@@ -212,7 +219,9 @@ impl From<&SettingSpec> for SettingEntry {
             choices: spec
                 .choices()
                 .map(|c| c.iter().map(|n| (*n).to_string()).collect()),
-            range,
+            range: range.map(|r| r.describe()),
+            minimum: range.map(|r| r.min),
+            maximum: range.map(|r| r.max),
             example: spec.example.into(),
             flag: match spec.flag {
                 Flag::Value { long, value_name } => format!("--{long} {value_name}"),

@@ -112,6 +112,20 @@ pub enum IngestError {
         column: usize,
     },
 
+    /// A position column's name breaks the rules of stored names (`recording::name_fault`:
+    /// length, control characters, `.` and `..`).
+    #[error("{file}: line {line}, column {column}: axis name not accepted: {fault}")]
+    BadAxisName {
+        /// File name as given by the caller.
+        file: String,
+        /// Header line.
+        line: usize,
+        /// Column of the name.
+        column: usize,
+        /// The rule it breaks.
+        fault: crate::recording::NameFault,
+    },
+
     /// Two position columns share a name, or there are two time columns.
     #[error(
         "{file}: line {line}, column {column}: column '{name}' appears twice; give each axis a \
@@ -663,6 +677,7 @@ impl IngestError {
             IngestError::NoDataRows { .. } => "no-data-rows",
             IngestError::NumericHeader { .. } => "numeric-header",
             IngestError::EmptyLabel { .. } => "empty-label",
+            IngestError::BadAxisName { .. } => "bad-axis-name",
             IngestError::DuplicateColumn { .. } => "duplicate-column",
             IngestError::UnsupportedUnit { .. } => "unsupported-unit",
             IngestError::NoPositionColumn { .. } => "no-position-column",

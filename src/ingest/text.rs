@@ -708,6 +708,7 @@ fn parse_header(
                 time = Some((col_idx, seconds_per_unit));
             }
             Role::Position(name, header_unit) => {
+                check_axis_name(file, line, column, name)?;
                 if positions.iter().any(|(_, other)| other == name) {
                     return Err(IngestError::DuplicateColumn {
                         file: file.to_string(),
@@ -795,6 +796,20 @@ fn unquote(label: &str) -> &str {
         .strip_prefix('"')
         .and_then(|inner| inner.strip_suffix('"'))
         .map_or(label, str::trim)
+}
+
+/// An axis name from a header follows the rules of every stored name
+/// (`recording::name_fault`), refused with its place.
+fn check_axis_name(file: &str, line: usize, column: usize, name: &str) -> Result<(), IngestError> {
+    match crate::recording::name_fault(name) {
+        None => Ok(()),
+        Some(fault) => Err(IngestError::BadAxisName {
+            file: file.to_string(),
+            line,
+            column,
+            fault,
+        }),
+    }
 }
 
 /// Decides whether a label names the time column or a position column, and its unit.

@@ -17,7 +17,9 @@ use crate::recording::PositionUnit;
 use crate::spectrum::{FilterSetting, NoiseFloorMode};
 use std::collections::BTreeMap;
 
-pub use spec::{Absent, Flag, KEYS, Kind, Range, SPECS, SettingSpec, Value, parse_filter};
+pub use spec::{
+    Absent, Flag, KEYS, Kind, Range, SPECS, SettingSpec, Value, number_text, parse_filter,
+};
 
 /// A setting that could not be used.
 #[derive(Clone, Debug, PartialEq, thiserror::Error)]
@@ -223,8 +225,16 @@ impl Settings {
             }
         }
         for s in SPECS {
-            if let (Kind::Number(range), Some(x)) = (s.kind, self.number(s.key)) {
-                range.check(x).map_err(|e| bad(s.key, &x.to_string(), e))?;
+            let given = match (s.kind, self.values.get(s.key)) {
+                (Kind::Number(range), Some(Value::Number(x))) => Some((range, *x)),
+                // A count beyond 2^53 is far outside every range; its f64 is exact enough here.
+                (Kind::Count(range), Some(Value::Count(n))) => Some((range, *n as f64)),
+                _ => None,
+            };
+            if let Some((range, x)) = given {
+                range
+                    .check(x)
+                    .map_err(|e| bad(s.key, &spec::number_text(x), e))?;
             }
         }
         Ok(())

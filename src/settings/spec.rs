@@ -37,8 +37,8 @@ pub struct SettingSpec {
 pub enum Kind {
     /// A finite decimal number, within a plausible range (checked by `Settings::resolve`).
     Number(Range),
-    /// A positive whole number.
-    Count,
+    /// A positive whole number, within a plausible range (checked by `Settings::resolve`).
+    Count(Range),
     /// `true` or `false` (also `yes`/`no`, `on`/`off`, `1`/`0`), any case.
     Boolean,
     /// One of fixed names, any case, or an alias of one.
@@ -50,17 +50,20 @@ pub enum Kind {
     Names,
 }
 
-/// The plausible range of a number.
+/// The plausible range of a number or a count, both ends included.
+///
+/// Every numeric row has one, so that a value no recording can have (a sample rate of 1e-300 Hz,
+/// a billion spectrum windows) is refused at the settings, naming the setting, instead of
+/// failing deep in the calibration without a field. The bounds are generous plausibility limits
+/// of common practice (no published source): they refuse the absurd, not the unusual, and the
+/// calibration still checks what only the recording can tell (an exposure longer than a frame,
+/// a height below the bead's radius).
 #[derive(Clone, Copy, Debug, PartialEq)]
-pub enum Range {
-    /// Any finite number (the consumer checks it, with a message that knows more).
-    Any,
-    /// Greater than zero.
-    Positive,
-    /// Zero or greater.
-    NonNegative,
-    /// From `min` to `max`, both included.
-    Within { min: f64, max: f64 },
+pub struct Range {
+    /// Smallest accepted value, in the row's unit.
+    pub min: f64,
+    /// Largest accepted value, in the row's unit.
+    pub max: f64,
 }
 
 /// The names a choice takes: canonical names (the text `to_pairs` writes) and aliases.
@@ -198,7 +201,7 @@ impl Kind {
     pub fn name(&self) -> &'static str {
         match self {
             Kind::Number(_) => "number",
-            Kind::Count => "count",
+            Kind::Count(_) => "count",
             Kind::Boolean => "boolean",
             Kind::Choice(_) => "choice",
             Kind::Filter => "filter",
@@ -210,7 +213,7 @@ impl Kind {
     pub fn expected(&self) -> String {
         match self {
             Kind::Number(_) => "expected a finite number".into(),
-            Kind::Count => "expected a positive whole number".into(),
+            Kind::Count(_) => "expected a positive whole number".into(),
             Kind::Boolean => "expected true or false".into(),
             Kind::Choice(c) => format!("expected {}", c.listed()),
             Kind::Filter => {
@@ -231,7 +234,7 @@ impl Kind {
                 .ok()
                 .filter(|v| v.is_finite())
                 .map(Value::Number),
-            Kind::Count => t.parse::<usize>().ok().filter(|n| *n > 0).map(Value::Count),
+            Kind::Count(_) => t.parse::<usize>().ok().filter(|n| *n > 0).map(Value::Count),
             Kind::Boolean => match t.to_ascii_lowercase().as_str() {
                 "true" | "yes" | "1" | "on" => Some(Value::Boolean(true)),
                 "false" | "no" | "0" | "off" => Some(Value::Boolean(false)),
@@ -253,27 +256,33 @@ impl Kind {
 }
 
 impl Range {
-    /// `Err` with the end of a message ("expected ...") when `x` lies outside.
+    /// `Err` with the end of a message ("expected ...") when `x` lies outside (NaN included).
     pub fn check(&self, x: f64) -> Result<(), String> {
-        match *self {
-            Range::Any => Ok(()),
-            Range::Positive if !(x > 0.0) => Err("expected a positive number".into()),
-            Range::NonNegative if !(x >= 0.0) => Err("expected zero or a positive number".into()),
-            Range::Within { min, max } if !(min <= x && x <= max) => {
-                Err(format!("expected a number from {min} to {max}"))
-            }
-            _ => Ok(()),
+        if self.min <= x && x <= self.max {
+            Ok(())
+        } else {
+            Err(format!("expected {}", self.describe()))
         }
     }
 
-    /// The range in words, for documents; `None` for `Any`.
-    pub fn describe(&self) -> Option<String> {
-        match *self {
-            Range::Any => None,
-            Range::Positive => Some("positive".into()),
-            Range::NonNegative => Some("zero or positive".into()),
-            Range::Within { min, max } => Some(format!("{min} to {max}")),
-        }
+    /// The range in words, for messages and documents: `a number from 0.01 to 100`.
+    pub fn describe(&self) -> String {
+        format!(
+            "a number from {} to {}",
+            number_text(self.min),
+            number_text(self.max)
+        )
+    }
+}
+
+/// A number as people read it: plain decimals for ordinary magnitudes, `1e-300` style beyond
+/// them (Rust's plain form of 1e300 has 301 digits).
+pub fn number_text(x: f64) -> String {
+    let magnitude = x.abs();
+    if magnitude != 0.0 && !(1e-6..1e9).contains(&magnitude) {
+        format!("{x:e}")
+    } else {
+        format!("{x}")
     }
 }
 
@@ -365,7 +374,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "bead_diameter_um",
         label: "Bead diameter",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 0.01,
+            max: 100.0,
+        }),
         unit: "µm",
         help: "Diameter of the trapped bead, as its supplier states it.",
         absent: Absent::Required {
@@ -380,7 +392,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "bead_diameter_se_um",
         label: "Bead diameter standard error",
-        kind: Kind::Number(Range::NonNegative),
+        kind: Kind::Number(Range {
+            min: 0.0,
+            max: 10.0,
+        }),
         unit: "µm",
         help: "Standard error of the bead diameter (from the supplier); carried into the \
                stiffness errors.",
@@ -394,7 +409,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "temperature_c",
         label: "Temperature",
-        kind: Kind::Number(Range::Any),
+        kind: Kind::Number(Range {
+            min: -50.0,
+            max: 150.0,
+        }),
         unit: "°C",
         help: "Sample temperature; sets the thermal energy and the water viscosity.",
         absent: Absent::Required {
@@ -409,7 +427,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "temperature_se_c",
         label: "Temperature standard error",
-        kind: Kind::Number(Range::NonNegative),
+        kind: Kind::Number(Range {
+            min: 0.0,
+            max: 50.0,
+        }),
         unit: "°C",
         help: "Standard error of the temperature; carried into the stiffness errors.",
         absent: Absent::Default("0"),
@@ -422,7 +443,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "viscosity_mpa_s",
         label: "Viscosity",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 0.01,
+            max: 1e6,
+        }),
         unit: "mPa·s",
         help: "Give it when the medium is not plain water.",
         absent: Absent::Means("water at the given temperature (IAPWS 2008)"),
@@ -450,7 +474,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "height_um",
         label: "Height above the surface",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 0.001,
+            max: 1e4,
+        }),
         unit: "µm",
         help: "Height of the bead centre above the surface; turns on the wall correction of \
                the drag.",
@@ -464,7 +491,7 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "height_se_um",
         label: "Height standard error",
-        kind: Kind::Number(Range::NonNegative),
+        kind: Kind::Number(Range { min: 0.0, max: 1e3 }),
         unit: "µm",
         help: "Standard error of the height; carried into the stiffness errors.",
         absent: Absent::Default("0"),
@@ -491,7 +518,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "bead_density_kg_per_m3",
         label: "Bead density",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 100.0,
+            max: 30_000.0,
+        }),
         unit: "kg/m³",
         help: "Density of the bead material; used only by the frequency-dependent drag \
                (hydrodynamics).",
@@ -505,7 +535,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "medium_density_kg_per_m3",
         label: "Medium density",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 100.0,
+            max: 30_000.0,
+        }),
         unit: "kg/m³",
         help: "Density of the medium; used only by the frequency-dependent drag. Give it with \
                the viscosity when the medium is not plain water.",
@@ -519,7 +552,7 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "sample_rate_hz",
         label: "Sample rate",
-        kind: Kind::Number(Range::Any),
+        kind: Kind::Number(Range { min: 1.0, max: 1e9 }),
         unit: "Hz",
         help: "Samples per second per axis; needed when the file has no time column, and \
                checked against it when it has one.",
@@ -560,7 +593,7 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "channels",
         label: "Channels",
-        kind: Kind::Count,
+        kind: Kind::Count(Range { min: 1.0, max: 3.0 }),
         unit: "",
         help: "Interleaved channels (axes) in a raw binary file.",
         absent: Absent::Means("one channel"),
@@ -573,7 +606,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "volts_per_count",
         label: "Volts per count",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 1e-12,
+            max: 1e3,
+        }),
         unit: "V",
         help: "Scale of integer samples (raw-i16, integer .npy) in volts per count.",
         absent: Absent::Means("none; raw-i16 files need it"),
@@ -586,7 +622,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "time_tolerance",
         label: "Time-step tolerance",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 1e-9,
+            max: 0.5,
+        }),
         unit: "",
         help: "Relative tolerance on uniform time steps, and on the agreement of the time \
                column with the sample rate.",
@@ -600,7 +639,7 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "fit_min_hz",
         label: "Lowest fitted frequency",
-        kind: Kind::Number(Range::NonNegative),
+        kind: Kind::Number(Range { min: 0.0, max: 1e9 }),
         unit: "Hz",
         help: "Lower end of the spectral fit.",
         absent: Absent::Means("the larger of 10 Hz and 4 frequency steps"),
@@ -613,7 +652,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "fit_max_hz",
         label: "Highest fitted frequency",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 1e-3,
+            max: 1e9,
+        }),
         unit: "Hz",
         help: "Upper end of the spectral fit.",
         absent: Absent::Means("0.8 of the Nyquist frequency, 0.98 with a detector filter"),
@@ -626,7 +668,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "windows",
         label: "Spectrum windows",
-        kind: Kind::Count,
+        kind: Kind::Count(Range {
+            min: 1.0,
+            max: 10_000.0,
+        }),
         unit: "",
         help: "Non-overlapping segments averaged in the periodogram.",
         absent: Absent::Means("segments of about 2^18 samples"),
@@ -669,7 +714,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "exposure_time_s",
         label: "Camera exposure",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 1e-9,
+            max: 100.0,
+        }),
         unit: "s",
         help: "Exposure time of a camera: each frame is the average position over this time \
                (motion blur), at most the frame interval 1/sample rate.",
@@ -741,7 +789,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "drive_frequency_hz",
         label: "Stage drive frequency",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 1e-3,
+            max: 1e9,
+        }),
         unit: "Hz",
         help: "Frequency at which the sample stage was oscillated during the recording, for \
                active calibration (with the stage amplitude); below the Nyquist frequency.",
@@ -755,7 +806,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "drive_amplitude_nm",
         label: "Stage drive amplitude",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 1e-3,
+            max: 1e7,
+        }),
         unit: "nm",
         help: "Amplitude (zero to peak) of the stage's sinusoidal motion; given with the \
                drive frequency.",
@@ -769,7 +823,7 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "drive_amplitude_se_nm",
         label: "Drive amplitude error",
-        kind: Kind::Number(Range::NonNegative),
+        kind: Kind::Number(Range { min: 0.0, max: 1e7 }),
         unit: "nm",
         help: "Standard error of the stage amplitude from the stage's own calibration; it \
                enters the sensitivity, the measured drag and the stiffness.",
@@ -810,7 +864,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "precision_percent",
         label: "Target precision",
-        kind: Kind::Number(Range::Positive),
+        kind: Kind::Number(Range {
+            min: 1e-3,
+            max: 100.0,
+        }),
         unit: "%",
         help: "Relative standard error of the stiffness you need; a larger one is reported \
                as a finding.",

@@ -272,17 +272,21 @@ fn check_parse(kind: Kind, text: &str, expected: Option<Value>) {
 #[test]
 fn kinds_take_what_they_document_and_refuse_the_rest() {
     use Value::*;
-    let number = Kind::Number(Range::Any);
+    let number = Kind::Number(Range {
+        min: f64::MIN,
+        max: f64::MAX,
+    });
+    let count = Kind::Count(Range { min: 1.0, max: 9.0 });
     check_parse(number, " 2.5 ", Some(Number(2.5)));
     check_parse(number, "-1e-3", Some(Number(-1e-3)));
     check_parse(number, "abc", None);
     check_parse(number, "inf", None);
     check_parse(number, "NaN", None);
     check_parse(number, "1,5", None);
-    check_parse(Kind::Count, "3", Some(Count(3)));
-    check_parse(Kind::Count, "0", None);
-    check_parse(Kind::Count, "-1", None);
-    check_parse(Kind::Count, "2.5", None);
+    check_parse(count, "3", Some(Count(3)));
+    check_parse(count, "0", None);
+    check_parse(count, "-1", None);
+    check_parse(count, "2.5", None);
     for yes in ["true", "YES", "on", "1"] {
         check_parse(Kind::Boolean, yes, Some(Boolean(true)));
     }
@@ -307,26 +311,84 @@ fn kinds_take_what_they_document_and_refuse_the_rest() {
 }
 
 #[test]
-fn ranges_are_checked_by_resolve_naming_the_key() {
-    let base = base();
+fn every_numeric_row_has_a_range_that_holds_its_example_and_default() {
     for s in SPECS {
-        let Kind::Number(range) = s.kind else {
+        let (Kind::Number(range) | Kind::Count(range)) = s.kind else {
             continue;
         };
-        let outside = match range {
-            Range::Any => continue,
-            Range::Positive => "0".to_string(),
-            Range::NonNegative => "-0.001".to_string(),
-            Range::Within { min, .. } => format!("{}", min - 1.0),
-        };
-        let refused = with(&base, s.key, &outside).resolve();
         assert!(
-            matches!(&refused, Err(SettingsError::BadValue { key, .. }) if key == s.key),
-            "{} = {outside}: {refused:?}",
+            range.min.is_finite() && range.max.is_finite() && range.min < range.max,
+            "{}: {range:?}",
             s.key
         );
+        let mut texts = vec![s.example];
+        if let Absent::Default(d) = s.absent {
+            texts.push(d);
+        }
+        for text in texts {
+            let x = match s.kind.parse(text) {
+                Ok(Value::Number(x)) => x,
+                Ok(Value::Count(n)) => n as f64,
+                other => panic!("{}: `{text}` gives {other:?}", s.key),
+            };
+            assert!(
+                range.check(x).is_ok(),
+                "{}: `{text}` outside {range:?}",
+                s.key
+            );
+        }
     }
-    let within = Range::Within {
+}
+
+#[test]
+fn values_outside_a_rows_range_are_refused_by_resolve_naming_the_key() {
+    let base = base();
+    for s in SPECS {
+        let (Kind::Number(range) | Kind::Count(range)) = s.kind else {
+            continue;
+        };
+        // Just outside each end (a count's lower end, 1, is refused by parsing already).
+        let below = range.min.abs().max(1.0).mul_add(-0.5, range.min);
+        let above = range.max.abs().max(1.0).mul_add(0.5, range.max);
+        for outside in [below, above] {
+            let text = match s.kind {
+                Kind::Count(_) if outside < 1.0 => continue,
+                Kind::Count(_) => format!("{}", outside.ceil()),
+                _ => format!("{outside:e}"),
+            };
+            let refused = with(&base, s.key, &text).resolve();
+            assert!(
+                matches!(&refused, Err(SettingsError::BadValue { key, .. }) if key == s.key),
+                "{} = {text}: {refused:?}",
+                s.key
+            );
+        }
+    }
+}
+
+#[test]
+fn absurd_sample_rates_and_window_counts_are_refused_with_their_range() {
+    // The probe of issue 14: each of these failed deep in the calibration without a field.
+    let base = base();
+    for (key, text) in [
+        ("sample_rate_hz", "1e-300"),
+        ("sample_rate_hz", "1e300"),
+        ("windows", "1000000000"),
+    ] {
+        match with(&base, key, text).resolve() {
+            Err(SettingsError::BadValue {
+                key: k,
+                value,
+                expected,
+            }) => {
+                assert_eq!(k, key);
+                assert!(value.len() < 20, "{value}");
+                assert!(expected.starts_with("expected a number from"), "{expected}");
+            }
+            other => panic!("{key} = {text}: {other:?}"),
+        }
+    }
+    let within = Range {
         min: 0.0,
         max: 100.0,
     };
@@ -336,6 +398,9 @@ fn ranges_are_checked_by_resolve_naming_the_key() {
         Err("expected a number from 0 to 100".to_string())
     );
     assert!(within.check(f64::NAN).is_err());
+    assert_eq!(crate::settings::number_text(1e300), "1e300");
+    assert_eq!(crate::settings::number_text(1e-300), "1e-300");
+    assert_eq!(crate::settings::number_text(0.25), "0.25");
 }
 
 #[test]

@@ -318,14 +318,15 @@ fn bad_inputs() -> Vec<Bad> {
             bytes: vec![0u8; 8 * 2000],
             args: &["--units", "nm", "--sample-rate", "0"],
             code: 3,
-            fragments: &["zero.f64", "sample rate"],
+            // Refused by the settings table's range, naming the setting.
+            fragments: &["sample_rate_hz", "expected a number from 1 to"],
         },
         Bad {
             file: "negative.f64",
             bytes: vec![0u8; 8 * 2000],
             args: &["--units", "nm", "--sample-rate", "-5"],
             code: 3,
-            fragments: &["negative.f64", "-5"],
+            fragments: &["sample_rate_hz", "-5"],
         },
         Bad {
             file: "conflict.csv",

@@ -3,7 +3,7 @@
 //! TRAPWISE_UPDATE_SNAPSHOTS=1 to rewrite it after changing the table).
 
 use std::path::Path;
-use trapwise::settings::{Flag, Kind, SPECS, SettingSpec};
+use trapwise::settings::{Flag, Kind, SPECS, SettingSpec, number_text};
 
 /// The lines that enclose the generated table in README.md.
 const BEGIN: &str =
@@ -18,11 +18,12 @@ fn cell(text: &str) -> String {
 /// What a row's value must be, in words.
 fn value_words(spec: &SettingSpec) -> String {
     match spec.kind {
-        Kind::Number(range) => match range.describe() {
-            Some(r) => format!("number, {r}"),
-            None => "number".to_string(),
-        },
-        Kind::Count => "whole number, 1 or more".to_string(),
+        Kind::Number(range) => range.describe(),
+        Kind::Count(range) => format!(
+            "whole number from {} to {}",
+            number_text(range.min),
+            number_text(range.max)
+        ),
         Kind::Boolean => "true or false".to_string(),
         Kind::Choice(c) => {
             let names: Vec<String> = c.names.iter().map(|n| format!("`{n}`")).collect();

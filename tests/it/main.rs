@@ -36,6 +36,11 @@ mod service;
 // before the body, and a SIGTERM that ends the binary within the grace period.
 mod connections;
 
+// The API's contract on both backends: every error a problem document with its own status,
+// settings out of range and bad names refused with the field, capped details, and the OpenAPI
+// document describing what the service answers.
+mod api_contract;
+
 // The page in headless Chromium over WebDriver against the real service: uploads by drop and
 // by file chooser, numbers equal to the API's, plots drawn, refused uploads' messages, the
 // laser-safety caution in view, history and overview; screenshots in test-output/screenshots.

@@ -593,11 +593,12 @@ fn bad_cases(good_csv: &[u8]) -> Vec<BadCase> {
             "water out of range",
             "run.csv",
             good_csv,
-            with(&[("temperature_c", "250")]),
+            // Within the setting's range, beyond the water model's 0 to 99 °C.
+            with(&[("temperature_c", "120")]),
             422,
             "viscosity-unavailable",
             Some("temperature_c"),
-            "250",
+            "120",
         ),
         case(
             "negative bead diameter",
@@ -607,7 +608,7 @@ fn bad_cases(good_csv: &[u8]) -> Vec<BadCase> {
             400,
             "invalid-field",
             Some("bead_diameter_um"),
-            "positive",
+            "expected a number from 0.01 to 100",
         ),
         case(
             "npy without a sample rate",
@@ -1298,7 +1299,7 @@ async fn the_settings_table_is_served_documented_and_taken_by_uploads(backend: B
         );
         let json_type = match spec.kind {
             Kind::Number(_) => "number",
-            Kind::Count => "integer",
+            Kind::Count(_) => "integer",
             Kind::Boolean => "boolean",
             Kind::Choice(_) | Kind::Filter | Kind::Names => "string",
         };
