@@ -459,7 +459,10 @@ pub const SPECS: &[SettingSpec] = &[
     SettingSpec {
         key: "viscosity_se_mpa_s",
         label: "Viscosity standard error",
-        kind: Kind::Number(Range::NonNegative),
+        kind: Kind::Number(Range {
+            min: 0.0,
+            max: 100_000.0,
+        }),
         unit: "mPa·s",
         help: "Standard error of the viscosity: of the value given, or of water's formula when \
                none is given (IAPWS 2008 states about 1 % for liquid water at atmospheric \
