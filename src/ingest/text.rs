@@ -7,8 +7,10 @@
 //! - An optional UTF-8 byte order mark; lines end in LF or CRLF; `#` lines and blank lines
 //!   before the header (or before the first row of a headerless file) are skipped; blank lines
 //!   after the last row are allowed, blank lines between rows are an error.
-//! - CSV separates cells with `,`, TSV with a tab; spaces (and, for CSV, tabs) around cells are
-//!   ignored; header labels may be wrapped in double quotes.
+//! - CSV separates cells with `,` (or `;`, with a decimal point or a decimal comma), TSV with a
+//!   tab; spaces (and, for CSV, tabs) around cells are ignored; header labels may be wrapped in
+//!   double quotes. The separator and the decimal mark are decided before the first row is read
+//!   (`layout::decide`).
 //! - The header names an optional time column (`t` or `time`, any ASCII case, in seconds, or
 //!   with unit `ms` or `us`: `time_s`, `t_ms`, `time (us)`) and one to three position columns
 //!   whose names become the axis names. A position unit is a suffix `_nm`, `_V`, `_v` or a
@@ -19,6 +21,7 @@
 //! CSV here is the unquoted subset of RFC 4180 (Common Format and MIME Type for CSV Files):
 //! data cells are never quoted, and LF line ends are accepted as well as CRLF.
 
+use super::layout::Layout;
 use super::stream::LineChunks;
 use super::{
     Format, IngestError, IngestOptions, MIN_SAMPLES, SNIFF_BYTES, check_rate, finish,
@@ -27,7 +30,7 @@ use super::{
 use crate::recording::{AxisTrace, PositionUnit, Recording};
 
 /// The UTF-8 byte order mark some editors put at the start of text files.
-const BOM: &[u8] = b"\xEF\xBB\xBF";
+pub(super) const BOM: &[u8] = b"\xEF\xBB\xBF";
 
 /// Pieces of text at least this long are scanned on two threads (`Table::scan_split`), bytes:
 /// below it a thread costs more than it saves (about 2.5 ms of parsing per MiB here against
@@ -58,11 +61,14 @@ const MAX_QUOTED_CHARS: usize = 40;
 
 /// The cell separator of a table.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-enum Sep {
+pub(super) enum Sep {
     /// A single comma; spaces and tabs around cells are ignored.
     Comma,
     /// A single tab; spaces around cells are ignored.
     Tab,
+    /// A single semicolon, as spreadsheet programs write CSV where the comma is the decimal
+    /// mark; spaces and tabs around cells are ignored.
+    Semicolon,
     /// One or more spaces or tabs.
     Whitespace,
 }
@@ -73,13 +79,17 @@ impl Sep {
         match self {
             Sep::Comma => Some(b','),
             Sep::Tab => Some(b'\t'),
+            Sep::Semicolon => Some(b';'),
             Sep::Whitespace => None,
         }
     }
 
-    /// The separator of a line: comma if present, else tab if present, else whitespace.
+    /// The separator of a line: semicolon if present (its cells may hold decimal commas), else
+    /// comma if present, else tab if present, else whitespace.
     fn of_line(line: &[u8]) -> Sep {
-        if line.contains(&b',') {
+        if line.contains(&b';') {
+            Sep::Semicolon
+        } else if line.contains(&b',') {
             Sep::Comma
         } else if line.contains(&b'\t') {
             Sep::Tab
@@ -117,7 +127,7 @@ impl Sniffed {
     /// by spaces is left to the `Columns` parser, which reports its first non-numeric cell).
     pub(super) fn format(self) -> Format {
         match (self.numeric_first_row, self.sep) {
-            (false, Sep::Comma) => Format::Csv,
+            (false, Sep::Comma | Sep::Semicolon) => Format::Csv,
             (false, Sep::Tab) => Format::Tsv,
             _ => Format::Columns,
         }
@@ -149,7 +159,11 @@ pub(super) fn sniff(bytes: &[u8]) -> Option<Sniffed> {
         .map(str::trim)
         .find(|line| !line.is_empty() && !line.starts_with('#'))?;
     let sep = Sep::of_line(row.as_bytes());
-    let numeric_first_row = split_cells(row, sep).all(|cell| is_number(cell.trim()));
+    // A semicolon-separated row may hold decimal commas; either mark makes it numeric.
+    let decimal_comma = sep == Sep::Semicolon;
+    let numeric_first_row = split_cells(row, sep).all(|cell| {
+        is_number(cell.trim(), false) || (decimal_comma && is_number(cell.trim(), true))
+    });
     Some(Sniffed {
         numeric_first_row,
         sep,
@@ -157,17 +171,48 @@ pub(super) fn sniff(bytes: &[u8]) -> Option<Sniffed> {
 }
 
 /// Splits a line into cells by the separator (cells not trimmed).
-fn split_cells(line: &str, sep: Sep) -> Box<dyn Iterator<Item = &str> + '_> {
+pub(super) fn split_cells(line: &str, sep: Sep) -> Box<dyn Iterator<Item = &str> + '_> {
     match sep {
         Sep::Comma => Box::new(line.split(',')),
         Sep::Tab => Box::new(line.split('\t')),
+        Sep::Semicolon => Box::new(line.split(';')),
         Sep::Whitespace => Box::new(line.split_ascii_whitespace()),
     }
 }
 
-/// Whether the whole text is one number as `fast_float2` reads it.
-fn is_number(cell: &str) -> bool {
-    fast_float2::parse::<f64, _>(cell).is_ok()
+/// Whether the whole text is one number as the row scanner reads it (`parse_cell`), with a
+/// decimal point or, if `decimal_comma`, a decimal comma.
+fn is_number(cell: &str, decimal_comma: bool) -> bool {
+    let bytes = cell.as_bytes();
+    !bytes.is_empty() && parse_cell(bytes, decimal_comma).is_some_and(|(_, n)| n == bytes.len())
+}
+
+/// The longest cell read with a decimal comma, bytes: longer cells are reported as not numeric
+/// (a double needs at most 17 significant digits; an exponent and padding digits fit well
+/// within this).
+const MAX_DECIMAL_COMMA_CELL: usize = 64;
+
+/// Reads the number at the start of `bytes`, returning it with the bytes it took.
+///
+/// With `decimal_comma` the comma is the decimal mark and a point is not a number character
+/// (so `1.234,5`, with a thousands point, is refused rather than misread): the cell is copied
+/// with the marks swapped into a small buffer and read there, byte for byte, so the count of
+/// bytes taken is the same in the original.
+#[inline]
+fn parse_cell(bytes: &[u8], decimal_comma: bool) -> Option<(f64, usize)> {
+    if !decimal_comma {
+        return fast_float2::parse_partial::<f64, _>(bytes).ok();
+    }
+    let mut buf = [0u8; MAX_DECIMAL_COMMA_CELL];
+    let n = bytes.len().min(MAX_DECIMAL_COMMA_CELL);
+    for (dst, &b) in buf.iter_mut().zip(bytes.iter().take(n)) {
+        *dst = match b {
+            b',' => b'.',
+            b'.' => b'#',
+            other => other,
+        };
+    }
+    fast_float2::parse_partial::<f64, _>(buf.get(..n).unwrap_or_default()).ok()
 }
 
 /// Reads a CSV, TSV or headerless-columns file from a stream (see the module documentation for
@@ -181,6 +226,7 @@ pub(super) fn read_text(
     file: &str,
     mut chunks: LineChunks<'_>,
     format: Format,
+    layout: Layout,
     options: &IngestOptions,
     size_hint: Option<usize>,
     split: Split,
@@ -205,7 +251,7 @@ pub(super) fn read_text(
                 if !cursor.at_end() {
                     let remaining = size_hint.map(|total| total.saturating_sub(base + cursor.pos));
                     let started =
-                        table.insert(Table::start(file, &mut cursor, format, options, remaining)?);
+                        table.insert(Table::start(file, &mut cursor, format, layout, options, remaining)?);
                     started.scan_split(file, &mut cursor, split)?;
                 }
             }
@@ -257,8 +303,8 @@ fn check_utf8(file: &str, base: usize, first_line: usize, piece: &[u8]) -> Resul
 
 /// What the first row of a table fixed, and the rows read so far.
 struct Table {
-    /// Cell separator.
-    sep: Sep,
+    /// Cell separator and decimal mark.
+    layout: Layout,
     /// What fixed `n_cols`, for messages: "header" or "first row".
     reference: &'static str,
     /// One vector per column; the time column's is emptied after each piece.
@@ -284,18 +330,14 @@ impl Table {
         file: &str,
         cursor: &mut Cursor<'_>,
         format: Format,
+        layout: Layout,
         options: &IngestOptions,
         remaining: Option<usize>,
     ) -> Result<Table, IngestError> {
         let mut table = match format {
             Format::Columns => {
                 let first_row = cursor.current_line();
-                let sep = if first_row.contains(&b',') {
-                    Sep::Comma
-                } else {
-                    Sep::Whitespace
-                };
-                let n_cols = count_cells(first_row, sep);
+                let n_cols = count_cells(first_row, layout.sep);
                 if n_cols > 3 {
                     return Err(IngestError::TooManyColumns {
                         file: file.to_string(),
@@ -305,24 +347,25 @@ impl Table {
                 }
                 let unit = required_unit(file, Format::Columns.name(), options)?;
                 let rate = required_rate(file, Format::Columns, options)?;
-                Table::new(n_cols, sep, "first row", unit, Some(rate))
+                Table::new(n_cols, layout, "first row", unit, Some(rate))
             }
             _ => {
-                let (sep, format) = match format {
-                    Format::Tsv => (Sep::Tab, Format::Tsv),
-                    _ => (Sep::Comma, Format::Csv),
+                let format = match format {
+                    Format::Tsv => Format::Tsv,
+                    _ => Format::Csv,
                 };
                 let header_line = cursor.line;
                 let header_bytes = cursor.take_line();
                 // The piece was checked to be UTF-8 and lines are cut at ASCII bytes.
                 let header_text = std::str::from_utf8(header_bytes).unwrap_or_default();
-                let header = parse_header(file, header_line, header_text, sep, format, options)?;
+                let header =
+                    parse_header(file, header_line, header_text, layout, format, options)?;
                 let given_rate_hz = match header.time {
                     Some(_) => None,
                     None => Some(required_rate(file, format, options)?),
                 };
                 let mut table =
-                    Table::new(header.n_cols, sep, "header", header.unit, given_rate_hz);
+                    Table::new(header.n_cols, layout, "header", header.unit, given_rate_hz);
                 table.time = header
                     .time
                     .map(|(col_idx, seconds_per_unit)| (col_idx, TimeCheck::new(seconds_per_unit)));
@@ -348,13 +391,13 @@ impl Table {
     /// An empty table of `n_cols` columns.
     fn new(
         n_cols: usize,
-        sep: Sep,
+        layout: Layout,
         reference: &'static str,
         unit: PositionUnit,
         given_rate_hz: Option<f64>,
     ) -> Table {
         Table {
-            sep,
+            layout,
             reference,
             columns: (0..n_cols).map(|_| Vec::new()).collect(),
             time: None,
@@ -394,7 +437,7 @@ impl Table {
             line: cursor.line,
         };
         let tail_line = cursor.line + count_line_feeds(head.get(cursor.pos..).unwrap_or_default());
-        let (sep, reference, n_cols) = (self.sep, self.reference, self.columns.len());
+        let (layout, reference, n_cols) = (self.layout, self.reference, self.columns.len());
         let scan_tail = move || {
             let mut tail_cursor = Cursor {
                 bytes: tail,
@@ -404,7 +447,7 @@ impl Table {
             let mut columns: Vec<Vec<f64>> = (0..n_cols)
                 .map(|_| Vec::with_capacity(tail.len() / 16))
                 .collect();
-            let outcome = scan_rows(file, &mut tail_cursor, &mut columns, sep, reference);
+            let outcome = scan_rows(file, &mut tail_cursor, &mut columns, layout, reference);
             (outcome, columns, tail_cursor.line)
         };
         // On one core the halves run one after the other, through the same joining code.
@@ -472,7 +515,8 @@ impl Table {
         }
         let first_row_line = cursor.line;
         let rows_before = self.columns.first().map_or(0, Vec::len);
-        self.trailing_blank = scan_rows(file, cursor, &mut self.columns, self.sep, self.reference)?;
+        self.trailing_blank =
+            scan_rows(file, cursor, &mut self.columns, self.layout, self.reference)?;
         let n_new = self.columns.first().map_or(0, Vec::len) - rows_before;
         if let Some((col_idx, check)) = self.time.as_mut() {
             if let Some(times) = self.columns.get_mut(*col_idx) {
@@ -676,11 +720,12 @@ fn parse_header(
     file: &str,
     line: usize,
     text: &str,
-    sep: Sep,
+    layout: Layout,
     format: Format,
     options: &IngestOptions,
 ) -> Result<Header, IngestError> {
-    if split_cells(text, sep).all(|cell| is_number(cell.trim())) {
+    let Layout { sep, decimal_comma } = layout;
+    if split_cells(text, sep).all(|cell| is_number(cell.trim(), decimal_comma)) {
         return Err(IngestError::NumericHeader {
             file: file.to_string(),
             line,
@@ -973,9 +1018,10 @@ fn scan_rows(
     file: &str,
     cursor: &mut Cursor<'_>,
     columns: &mut [Vec<f64>],
-    sep: Sep,
+    layout: Layout,
     reference: &'static str,
 ) -> Result<Option<usize>, IngestError> {
+    let Layout { sep, decimal_comma } = layout;
     let n_cols = columns.len();
     if n_cols == 0 {
         // Callers never ask for zero columns; returning keeps the row loop from spinning.
@@ -1024,7 +1070,7 @@ fn scan_rows(
             pos = skip_padding(bytes, pos, tabs);
             let cell_start = pos;
             let rest = bytes.get(pos..).unwrap_or_default();
-            let Ok((value, n_read)) = fast_float2::parse_partial::<f64, _>(rest) else {
+            let Some((value, n_read)) = parse_cell(rest, decimal_comma) else {
                 return Err(non_numeric(line, col_idx + 1, cell_start));
             };
             pos += n_read;

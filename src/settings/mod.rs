@@ -12,7 +12,7 @@ pub mod spec;
 use crate::calibration::{AnalysisOptions, Drive, RunConditions};
 use crate::drag;
 use crate::equipartition::Detrend;
-use crate::ingest::{DEFAULT_TIME_TOLERANCE, Format, IngestOptions};
+use crate::ingest::{DEFAULT_TIME_TOLERANCE, Delimiter, Format, IngestOptions};
 use crate::recording::PositionUnit;
 use crate::spectrum::{FilterSetting, NoiseFloorMode};
 use std::collections::BTreeMap;
@@ -247,7 +247,20 @@ impl Settings {
             time_tolerance: self
                 .number("time_tolerance")
                 .unwrap_or(DEFAULT_TIME_TOLERANCE),
+            delimiter: self.choice("delimiter", Delimiter::parse_name)?,
+            decimal_comma: self.boolean("decimal_comma"),
+            datasets: self.names("dataset").map(<[String]>::to_vec).unwrap_or_default(),
+            ..IngestOptions::default()
         };
+        if ingest.delimiter == Some(Delimiter::Comma) && ingest.decimal_comma == Some(true) {
+            return Err(bad(
+                "decimal_comma",
+                "true",
+                "the comma cannot be both the delimiter and the decimal mark: give delimiter ; \
+                 or leave decimal_comma out"
+                    .to_string(),
+            ));
+        }
         let diameter_um = self.required_number("bead_diameter_um")?;
         let temperature_c = self.required_number("temperature_c")?;
         let mut conditions = RunConditions::new(diameter_um * 1e-6, temperature_c);
