@@ -26,7 +26,7 @@ pub enum IngestError {
     /// No format was given and neither the extension nor the content tells it.
     #[error(
         "{file}: cannot tell the file format from {reason}; give the format explicitly \
-         (csv, tsv, columns, raw-f32, raw-f64, raw-i16 or npy)"
+         (csv, tsv, columns, raw-f32, raw-f64, raw-i16, npy or npz)"
     )]
     UnknownFormat {
         /// File name as given by the caller.
