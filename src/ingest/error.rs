@@ -131,7 +131,7 @@ pub enum IngestError {
     /// A header names a unit that is not nm or V (positions) or s, ms, us (time).
     #[error(
         "{file}: line {line}, column {column}: unit '{unit}' is not supported here; positions \
-         must be in nm or V and the time column in s, ms or us"
+         must be in nm or V (um and mV are converted) and the time column in s, ms or us"
     )]
     UnsupportedUnit {
         /// File name as given by the caller.

@@ -348,3 +348,44 @@ fn npz_round_trips_through_encode() {
     let read = parse("r.npz", &bytes, &options()).expect("reads");
     assert_eq!(read, reference);
 }
+
+#[test]
+fn micrometre_columns_are_converted_to_nanometres_as_numpy_multiplies() {
+    let (name, bytes) = fixture!("record_um.csv");
+    let opts = IngestOptions {
+        sample_rate_hz: Some(50_000.0),
+        ..IngestOptions::default()
+    };
+    let read = parse(name, bytes, &opts).expect("reads");
+    let (npy_name, npy_bytes) = fixture!("record_um_in_nm.npy");
+    let expected = parse(npy_name, npy_bytes, &options()).expect("reads");
+    assert_eq!(read.unit, PositionUnit::Nanometre);
+    for (axis, want) in read.axes.iter().zip(&expected.axes) {
+        let bits: Vec<u64> = axis.samples.iter().map(|v| v.to_bits()).collect();
+        let want_bits: Vec<u64> = want.samples.iter().map(|v| v.to_bits()).collect();
+        assert_eq!(bits, want_bits, "axis {}", axis.name);
+    }
+}
+
+#[test]
+fn millivolt_columns_are_divided_into_volts_and_other_units_are_named() {
+    // Whole millivolts divide exactly into the nearest double of the volt value.
+    let mut text = String::from("x [mV]\n");
+    for k in 0..1024 {
+        text.push_str(&format!("{}\n", k % 17));
+    }
+    let opts = IngestOptions {
+        sample_rate_hz: Some(1000.0),
+        ..IngestOptions::default()
+    };
+    let read = parse("mv.csv", text.as_bytes(), &opts).expect("reads");
+    assert_eq!(read.unit, PositionUnit::Volt);
+    assert_eq!(read.axes[0].samples[5].to_bits(), (5.0f64 / 1000.0).to_bits());
+    let in_mm = text.replacen("x [mV]", "x (mm)", 1);
+    check_error(
+        ("mm.csv", in_mm.as_bytes()),
+        &opts,
+        "unsupported-unit",
+        &["line 1, column 1", "'mm'"],
+    );
+}

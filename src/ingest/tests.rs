@@ -646,10 +646,11 @@ fn header_errors() {
         "duplicate-column",
         &["line 2, column 3", "'t_ms'"],
     );
+    // Micrometres are converted (format_tests); a unit that is no multiple of nm or V is not.
     check(
-        "time_s,x (um)",
+        "time_s,x (mm)",
         "unsupported-unit",
-        &["line 2, column 2", "'um'"],
+        &["line 2, column 2", "'mm'"],
     );
     check("time_s,x_s", "unsupported-unit", &["column 2", "'s'"]);
     check(
@@ -657,12 +658,13 @@ fn header_errors() {
         "unsupported-unit",
         &["column 1", "'min'"],
     );
+    // `_mm` is not a unit suffix, so the label is a name without a unit.
     check(
-        "time_s,x_um",
+        "time_s,x_mm",
         "missing-unit",
         &[
             "line 2, column 2",
-            "'x_um'",
+            "'x_mm'",
             "x_nm",
             "give the unit explicitly",
         ],

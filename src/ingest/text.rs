@@ -14,7 +14,8 @@
 //! - The header names an optional time column (`t` or `time`, any ASCII case, in seconds, or
 //!   with unit `ms` or `us`: `time_s`, `t_ms`, `time (us)`) and one to three position columns
 //!   whose names become the axis names. A position unit is a suffix `_nm`, `_V`, `_v` or a
-//!   bracketed unit `x (nm)`, `x [V]`; all position columns share one unit.
+//!   bracketed unit `x (nm)`, `x [V]`; micrometres (`_um`, `(µm)`) are converted to nm and
+//!   millivolts (`_mV`, `[mV]`) to V; all position columns share one unit after conversion.
 //! - Headerless columns hold one to three position columns, named `x`, `y`, `z`; the first data
 //!   row decides the separator: a comma if it has one, else runs of spaces and tabs.
 //!
@@ -312,7 +313,7 @@ struct Table {
     /// Column index of the time column and the checks on its stamps.
     time: Option<(usize, TimeCheck)>,
     /// Headed tables: the header's line and the position columns with their names.
-    header: Option<(usize, Vec<(usize, String)>)>,
+    header: Option<(usize, Vec<(usize, String, Scale)>)>,
     /// Unit of the positions.
     unit: PositionUnit,
     /// Sample rate known before the rows (headerless tables).
@@ -553,18 +554,48 @@ impl Table {
             // not a sentinel, should that ever change.
             (None, None) => required_rate(file, Format::Csv, options)?,
         };
-        let axes = positions
-            .into_iter()
-            .map(|(col_idx, name)| AxisTrace {
-                name,
-                samples: self
-                    .columns
-                    .get_mut(col_idx)
-                    .map(std::mem::take)
-                    .unwrap_or_default(),
-            })
-            .collect();
+        let mut axes = Vec::with_capacity(positions.len());
+        for (col_idx, name, scale) in positions {
+            let mut samples = self
+                .columns
+                .get_mut(col_idx)
+                .map(std::mem::take)
+                .unwrap_or_default();
+            if let Some(sample_idx) = scale.apply(&mut samples) {
+                // Rows follow the header line by line (no comments or blank lines between).
+                return Err(IngestError::NonFiniteCell {
+                    file: file.to_string(),
+                    line: header_line + 1 + sample_idx,
+                    column: col_idx + 1,
+                    cell: "a value that overflows once converted to nm".to_string(),
+                });
+            }
+            axes.push(AxisTrace { name, samples });
+        }
         finish(file, sample_rate_hz, self.unit, axes)
+    }
+}
+
+/// The conversion of a position column to the unit trapwise works in (nm or V).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Scale {
+    /// Already nm or V.
+    One,
+    /// Micrometres to nanometres.
+    Times1000,
+    /// Millivolts to volts (divided, so that a value of whole millivolts is correctly rounded).
+    Per1000,
+}
+
+impl Scale {
+    /// Converts the samples in place; returns the index of the first that is no longer finite.
+    fn apply(self, samples: &mut [f64]) -> Option<usize> {
+        match self {
+            Scale::One => return None,
+            Scale::Times1000 => samples.iter_mut().for_each(|v| *v *= 1000.0),
+            Scale::Per1000 => samples.iter_mut().for_each(|v| *v /= 1000.0),
+        }
+        samples.iter().position(|v| !v.is_finite())
     }
 }
 
@@ -702,7 +733,7 @@ struct Header {
     /// Column index of the time column and the seconds per unit of its values.
     time: Option<(usize, f64)>,
     /// Column index and axis name of each position column, in file order.
-    positions: Vec<(usize, String)>,
+    positions: Vec<(usize, String, Scale)>,
     /// Unit shared by all position columns.
     unit: PositionUnit,
 }
@@ -711,8 +742,8 @@ struct Header {
 enum Role<'a> {
     /// Time column with this many seconds per unit.
     Time(f64),
-    /// Position column with this name and, if written, this unit.
-    Position(&'a str, Option<PositionUnit>),
+    /// Position column with this name and, if written, this unit and the conversion to it.
+    Position(&'a str, Option<PositionUnit>, Scale),
 }
 
 /// Interprets the header row (see the module documentation).
@@ -734,7 +765,7 @@ fn parse_header(
     }
     let mut n_cols = 0;
     let mut time = None;
-    let mut positions: Vec<(usize, String)> = Vec::with_capacity(3);
+    let mut positions: Vec<(usize, String, Scale)> = Vec::with_capacity(3);
     let mut unit: Option<PositionUnit> = None;
     for (col_idx, raw) in split_cells(text, sep).enumerate() {
         n_cols += 1;
@@ -752,8 +783,8 @@ fn parse_header(
                 }
                 time = Some((col_idx, seconds_per_unit));
             }
-            Role::Position(name, header_unit) => {
-                if positions.iter().any(|(_, other)| other == name) {
+            Role::Position(name, header_unit, scale) => {
+                if positions.iter().any(|(_, other, _)| other == name) {
                     return Err(IngestError::DuplicateColumn {
                         file: file.to_string(),
                         line,
@@ -786,7 +817,7 @@ fn parse_header(
                     }
                     _ => unit = Some(column_unit),
                 }
-                positions.push((col_idx, name.to_string()));
+                positions.push((col_idx, name.to_string(), scale));
             }
         }
     }
@@ -865,8 +896,10 @@ fn classify_label<'a>(
     };
     let position_unit = match unit_text {
         None => None,
-        Some("nm") => Some(PositionUnit::Nanometre),
-        Some("V" | "v") => Some(PositionUnit::Volt),
+        Some("nm") => Some((PositionUnit::Nanometre, Scale::One)),
+        Some("um" | "µm" | "μm") => Some((PositionUnit::Nanometre, Scale::Times1000)),
+        Some("V" | "v") => Some((PositionUnit::Volt, Scale::One)),
+        Some("mV" | "mv") => Some((PositionUnit::Volt, Scale::Per1000)),
         Some(_) => None,
     };
     let seconds_per_unit = match unit_text {
@@ -878,15 +911,15 @@ fn classify_label<'a>(
     let is_time_name = name.eq_ignore_ascii_case("t") || name.eq_ignore_ascii_case("time");
     match (is_time_name, seconds_per_unit, position_unit, unit_text) {
         (true, Some(seconds_per_unit), _, _) => Ok(Role::Time(seconds_per_unit)),
-        (_, _, Some(unit), _) => Ok(Role::Position(name, Some(unit))),
-        (_, _, None, None) => Ok(Role::Position(name, None)),
+        (_, _, Some((unit, scale)), _) => Ok(Role::Position(name, Some(unit), scale)),
+        (_, _, None, None) => Ok(Role::Position(name, None, Scale::One)),
         (_, _, None, Some(unit)) => Err(unsupported(unit)),
     }
 }
 
 /// Splits a label into name and unit text: `x (nm)` and `x [V]` always carry a unit; `x_nm`
-/// carries one only if the suffix is a unit we know (nm, V, v, s, ms, us), so that labels such
-/// as `bead_1` keep their underscore.
+/// carries one only if the suffix is a unit we know (nm, um, V, v, mV, s, ms, us), so that
+/// labels such as `bead_1` keep their underscore.
 fn split_label(label: &str) -> (&str, Option<&str>) {
     for (open, close) in [('(', ')'), ('[', ']')] {
         let bracketed = label
@@ -897,7 +930,12 @@ fn split_label(label: &str) -> (&str, Option<&str>) {
         }
     }
     match label.rsplit_once('_') {
-        Some((name, suffix)) if matches!(suffix, "nm" | "V" | "v" | "s" | "ms" | "us" | "µs") => {
+        Some((name, suffix))
+            if matches!(
+                suffix,
+                "nm" | "um" | "µm" | "V" | "v" | "mV" | "s" | "ms" | "us" | "µs"
+            ) =>
+        {
             (name, Some(suffix))
         }
         _ => (label, None),

@@ -16,6 +16,9 @@ first-order autoregressive noise (not a measurement). The other files hold the s
   spreadsheet in a European locale writes it; header x_nm;y_nm);
 - record.csv.gz (csv module with the default dialect, repr numbers, then gzip.compress) and
   record.npy.gz (gzip of record.npy's bytes);
+record_um.csv (csv module, header x_um,y_um, the record divided by 1000 by numpy, written
+as repr) with record_um_in_nm.npy (numpy's float64 product of those values and 1000, what the
+reader's conversion to nm must give bit for bit);
 and the bad cases: one_column_comma.csv (a header of one column over rows with a comma),
 mixed_marks.csv (semicolons, with a decimal comma in one row and a point in another),
 corrupt.csv.gz (record.csv.gz with bytes in the middle of the deflate data inverted),
@@ -97,3 +100,11 @@ with open("mixed_marks.csv", "w", newline="") as f:
             writer.writerow([repr(float(v)) for v in row])
         else:
             writer.writerow([decimal_comma(v) for v in row])
+
+in_um = record / 1000.0
+with open("record_um.csv", "w", newline="") as f:
+    writer = csv.writer(f, lineterminator="\n")
+    writer.writerow(["x_um", "y_um"])
+    for row in in_um:
+        writer.writerow([repr(float(v)) for v in row])
+np.save("record_um_in_nm.npy", in_um * 1000.0)
