@@ -122,7 +122,10 @@ impl<'r> Inflated<'r> {
 impl Read for Inflated<'_> {
     fn read(&mut self, out: &mut [u8]) -> std::io::Result<usize> {
         // Ask for at most one byte past the limit: getting it proves the limit is passed.
-        let room = self.limit_bytes.saturating_sub(self.produced).saturating_add(1);
+        let room = self
+            .limit_bytes
+            .saturating_sub(self.produced)
+            .saturating_add(1);
         let want = out.len().min(usize::try_from(room).unwrap_or(usize::MAX));
         let out = out.get_mut(..want).unwrap_or_default();
         match self.decoder.read(out) {

@@ -129,7 +129,11 @@ fn one_column_header_with_the_decimal_comma_set_reads_the_first_axis() {
         ..options()
     };
     let read = parse(name, bytes, &opts).expect("reads");
-    let expected: Vec<u64> = reference().axes[0].samples.iter().map(|v| v.to_bits()).collect();
+    let expected: Vec<u64> = reference().axes[0]
+        .samples
+        .iter()
+        .map(|v| v.to_bits())
+        .collect();
     let bits: Vec<u64> = read.axes[0].samples.iter().map(|v| v.to_bits()).collect();
     assert_eq!(bits, expected);
 }
@@ -236,7 +240,10 @@ fn a_gzip_bomb_is_refused_once_past_the_limit() {
     match e {
         IngestError::DecompressedTooLarge { byte_offset, .. } => {
             // The decompressor reads ahead in blocks, so the place is where its reading got to.
-            assert!(byte_offset > 0 && byte_offset <= bytes.len() as u64, "{byte_offset}");
+            assert!(
+                byte_offset > 0 && byte_offset <= bytes.len() as u64,
+                "{byte_offset}"
+            );
         }
         other => panic!("{other}"),
     }
@@ -272,7 +279,12 @@ fn npz_with_two_candidates_asks_for_the_dataset_and_lists_them() {
         fixture!("record_xy.npz"),
         &options(),
         "dataset-choice",
-        &["2 members", "--dataset", "'x' (8192,) <f8", "'y' (8192,) <f8"],
+        &[
+            "2 members",
+            "--dataset",
+            "'x' (8192,) <f8",
+            "'y' (8192,) <f8",
+        ],
     );
 }
 
@@ -327,7 +339,12 @@ fn members_of_different_lengths_are_refused_with_both_lengths() {
         datasets: vec!["gain".into()],
         ..options()
     };
-    check_error((name, bytes), &mixed, "too-few-samples", &["record_single.npz[gain.npy]"]);
+    check_error(
+        (name, bytes),
+        &mixed,
+        "too-few-samples",
+        &["record_single.npz[gain.npy]"],
+    );
 }
 
 #[test]
@@ -380,7 +397,10 @@ fn millivolt_columns_are_divided_into_volts_and_other_units_are_named() {
     };
     let read = parse("mv.csv", text.as_bytes(), &opts).expect("reads");
     assert_eq!(read.unit, PositionUnit::Volt);
-    assert_eq!(read.axes[0].samples[5].to_bits(), (5.0f64 / 1000.0).to_bits());
+    assert_eq!(
+        read.axes[0].samples[5].to_bits(),
+        (5.0f64 / 1000.0).to_bits()
+    );
     let in_mm = text.replacen("x [mV]", "x (mm)", 1);
     check_error(
         ("mm.csv", in_mm.as_bytes()),

@@ -131,9 +131,7 @@ fn separator(
             _ => Sep::Whitespace,
         }),
         _ => match (first.contains(';'), first.contains(',')) {
-            (true, true) => Err(ambiguous(
-                "the header holds both ';' and ','".to_string(),
-            )),
+            (true, true) => Err(ambiguous("the header holds both ';' and ','".to_string())),
             (true, false) => Ok(Sep::Semicolon),
             (false, true) if comma_is_decimal => Err(ambiguous(
                 "the header separates its columns with ',' but the comma is set to be the \

@@ -26,6 +26,7 @@
 mod binary;
 mod compressed;
 mod error;
+mod inspect;
 mod layout;
 mod npy;
 mod npz;
@@ -34,6 +35,7 @@ mod text;
 mod write;
 
 pub use error::IngestError;
+pub use inspect::{Column, Dataset, Inspection, inspect};
 pub use stream::READ_CHUNK_BYTES;
 pub use write::encode;
 
@@ -331,8 +333,7 @@ fn read_in_pieces(
     let head = magic.get(..n_magic).unwrap_or_default();
     let mut rejoined = head.chain(source);
     if head == compressed::GZIP_MAGIC {
-        let mut inflated =
-            compressed::Inflated::new(&mut rejoined, options.max_decompressed_bytes);
+        let mut inflated = compressed::Inflated::new(&mut rejoined, options.max_decompressed_bytes);
         let inner = compressed::inner_name(file_name);
         let read = read_plain(file_name, inner, &mut inflated, None, options, chunk_bytes);
         return read.map_err(|e| inflated.explain(file_name, e));

@@ -53,9 +53,8 @@ pub(super) fn members(
         let name = entry.name().to_string();
         // Never trust the declared size for the allocation: read at most one byte past the
         // budget and refuse when that byte arrives.
-        let mut data = Vec::with_capacity(
-            usize::try_from(entry.size().min(budget)).unwrap_or_default(),
-        );
+        let mut data =
+            Vec::with_capacity(usize::try_from(entry.size().min(budget)).unwrap_or_default());
         let read = (&mut entry)
             .take(budget.saturating_add(1))
             .read_to_end(&mut data);
@@ -74,7 +73,9 @@ pub(super) fn members(
             });
         }
         budget -= n_bytes;
-        let name = name.strip_suffix(".npy").map_or(name.clone(), str::to_string);
+        let name = name
+            .strip_suffix(".npy")
+            .map_or(name.clone(), str::to_string);
         members.push(Member { name, bytes: data });
     }
     Ok(members)
@@ -92,10 +93,12 @@ pub(super) fn describe(file: &str, members: &[Member]) -> String {
     }
     let described: Vec<String> = members
         .iter()
-        .map(|m| match npy::read_array(&member_file(file, &m.name), &m.bytes) {
-            Ok(array) => format!("'{}' {} {}", m.name, array.shape_text(), array.descr),
-            Err(_) => format!("'{}' (not a .npy array)", m.name),
-        })
+        .map(
+            |m| match npy::read_array(&member_file(file, &m.name), &m.bytes) {
+                Ok(array) => format!("'{}' {} {}", m.name, array.shape_text(), array.descr),
+                Err(_) => format!("'{}' (not a .npy array)", m.name),
+            },
+        )
         .collect();
     described.join(", ")
 }
@@ -211,7 +214,11 @@ fn axes_from_members(
                     format!(
                         "holds {} but '{first_name}' does not; the axes of one recording \
                          share one type",
-                        if array.is_integer() { "integers" } else { "floats" }
+                        if array.is_integer() {
+                            "integers"
+                        } else {
+                            "floats"
+                        }
                     ),
                 ));
             }

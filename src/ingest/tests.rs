@@ -2008,8 +2008,16 @@ fn blank_lines_that_end_a_first_half_still_forbid_the_rows_after_them() {
         let read_with = |split: text::Split| {
             let mut source = &bytes[..];
             let chunks = stream::LineChunks::new("blank.csv", &mut source, bytes.len() + 1);
-            text::read_text("blank.csv", chunks, Format::Csv, COMMA, &options(), None, split)
-                .map_err(|e| format!("{} / {e}", e.kind()))
+            text::read_text(
+                "blank.csv",
+                chunks,
+                Format::Csv,
+                COMMA,
+                &options(),
+                None,
+                split,
+            )
+            .map_err(|e| format!("{} / {e}", e.kind()))
         };
         let one_pass = read_with(text::Split {
             min_bytes: usize::MAX,

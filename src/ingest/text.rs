@@ -251,8 +251,14 @@ pub(super) fn read_text(
                 cursor.skip_preamble();
                 if !cursor.at_end() {
                     let remaining = size_hint.map(|total| total.saturating_sub(base + cursor.pos));
-                    let started =
-                        table.insert(Table::start(file, &mut cursor, format, layout, options, remaining)?);
+                    let started = table.insert(Table::start(
+                        file,
+                        &mut cursor,
+                        format,
+                        layout,
+                        options,
+                        remaining,
+                    )?);
                     started.scan_split(file, &mut cursor, split)?;
                 }
             }
@@ -302,6 +308,9 @@ fn check_utf8(file: &str, base: usize, first_line: usize, piece: &[u8]) -> Resul
     }
 }
 
+/// Column index, axis name and conversion of each position column, in file order.
+type PositionColumns = Vec<(usize, String, Scale)>;
+
 /// What the first row of a table fixed, and the rows read so far.
 struct Table {
     /// Cell separator and decimal mark.
@@ -313,7 +322,7 @@ struct Table {
     /// Column index of the time column and the checks on its stamps.
     time: Option<(usize, TimeCheck)>,
     /// Headed tables: the header's line and the position columns with their names.
-    header: Option<(usize, Vec<(usize, String, Scale)>)>,
+    header: Option<(usize, PositionColumns)>,
     /// Unit of the positions.
     unit: PositionUnit,
     /// Sample rate known before the rows (headerless tables).
@@ -359,8 +368,7 @@ impl Table {
                 let header_bytes = cursor.take_line();
                 // The piece was checked to be UTF-8 and lines are cut at ASCII bytes.
                 let header_text = std::str::from_utf8(header_bytes).unwrap_or_default();
-                let header =
-                    parse_header(file, header_line, header_text, layout, format, options)?;
+                let header = parse_header(file, header_line, header_text, layout, format, options)?;
                 let given_rate_hz = match header.time {
                     Some(_) => None,
                     None => Some(required_rate(file, format, options)?),
@@ -733,7 +741,7 @@ struct Header {
     /// Column index of the time column and the seconds per unit of its values.
     time: Option<(usize, f64)>,
     /// Column index and axis name of each position column, in file order.
-    positions: Vec<(usize, String, Scale)>,
+    positions: PositionColumns,
     /// Unit shared by all position columns.
     unit: PositionUnit,
 }
@@ -765,7 +773,7 @@ fn parse_header(
     }
     let mut n_cols = 0;
     let mut time = None;
-    let mut positions: Vec<(usize, String, Scale)> = Vec::with_capacity(3);
+    let mut positions: PositionColumns = Vec::with_capacity(3);
     let mut unit: Option<PositionUnit> = None;
     for (col_idx, raw) in split_cells(text, sep).enumerate() {
         n_cols += 1;
@@ -863,6 +871,51 @@ fn resolve_unit(
             label: label.to_string(),
         }),
     }
+}
+
+/// The first line that is not blank or a `#` comment, after a byte order mark, with its
+/// 1-based line number (for `inspect`).
+pub(super) fn first_line(prefix: &[u8]) -> Option<(usize, &str)> {
+    let prefix = prefix.strip_prefix(BOM).unwrap_or(prefix);
+    let text = match std::str::from_utf8(prefix) {
+        Ok(text) => text,
+        Err(e) => std::str::from_utf8(prefix.get(..e.valid_up_to())?).ok()?,
+    };
+    text.lines()
+        .enumerate()
+        .find(|(_, l)| !(l.trim().is_empty() || l.trim_start().starts_with('#')))
+        .map(|(idx, l)| (idx + 1, l))
+}
+
+/// What the reader makes of each header cell (for `inspect`): the time column, a position
+/// column with its unit and conversion, or the refusal.
+pub(super) fn header_roles(
+    file: &str,
+    line: usize,
+    header: &str,
+    sep: Sep,
+) -> Vec<super::inspect::Column> {
+    split_cells(header, sep)
+        .enumerate()
+        .map(|(col_idx, raw)| {
+            let label = unquote(raw.trim());
+            let role = match classify_label(file, line, col_idx + 1, label) {
+                Ok(Role::Time(_)) => "time (s)".to_string(),
+                Ok(Role::Position(_, None, _)) => "position (no unit)".to_string(),
+                Ok(Role::Position(_, Some(unit), Scale::One)) => {
+                    format!("position ({})", unit.suffix())
+                }
+                Ok(Role::Position(_, Some(unit), _)) => {
+                    format!("position (converted to {})", unit.suffix())
+                }
+                Err(e) => format!("refused: {e}"),
+            };
+            super::inspect::Column {
+                label: label.to_string(),
+                role,
+            }
+        })
+        .collect()
 }
 
 /// Removes one pair of surrounding double quotes.

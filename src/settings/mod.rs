@@ -249,7 +249,10 @@ impl Settings {
                 .unwrap_or(DEFAULT_TIME_TOLERANCE),
             delimiter: self.choice("delimiter", Delimiter::parse_name)?,
             decimal_comma: self.boolean("decimal_comma"),
-            datasets: self.names("dataset").map(<[String]>::to_vec).unwrap_or_default(),
+            datasets: self
+                .names("dataset")
+                .map(<[String]>::to_vec)
+                .unwrap_or_default(),
             ..IngestOptions::default()
         };
         if ingest.delimiter == Some(Delimiter::Comma) && ingest.decimal_comma == Some(true) {

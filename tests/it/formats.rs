@@ -8,7 +8,7 @@
 //! record.npy.
 
 use crate::on_both_backends;
-use crate::support::{Backend, TestDb, TestServer, options};
+use crate::support::{Backend, TestDb, TestServer, binary, check_snapshot, options};
 use serde_json::Value;
 use trapwise::http::ServiceOptions;
 use trapwise::settings::Settings;
@@ -103,8 +103,18 @@ async fn damaged_or_unchoosable_files_are_400_with_their_code_and_field(backend:
         ("corrupt.csv.gz", &[], "compressed-corrupt", None),
         ("not_an_archive.npz", &[], "zip-corrupt", None),
         ("record_xy.npz", &[], "dataset-choice", Some("dataset")),
-        ("record_xy.npz", &[("dataset", "z")], "dataset-missing", Some("dataset")),
-        ("mixed_marks.csv", &[], "decimal-mark-ambiguous", Some("decimal_comma")),
+        (
+            "record_xy.npz",
+            &[("dataset", "z")],
+            "dataset-missing",
+            Some("dataset"),
+        ),
+        (
+            "mixed_marks.csv",
+            &[],
+            "decimal-mark-ambiguous",
+            Some("decimal_comma"),
+        ),
     ];
     for (name, extra, code, field) in cases {
         let (status, problem) = send(&server, name, extra).await;
@@ -129,9 +139,55 @@ async fn a_compression_bomb_is_413_and_stores_nothing(backend: Backend) {
     assert_eq!(status, 413, "{problem}");
     assert_eq!(problem["code"], "upload-too-large");
     let detail = problem["detail"].as_str().unwrap_or_default();
-    assert!(detail.contains("1048576 bytes") && detail.contains("decompresses"), "{detail}");
+    assert!(
+        detail.contains("1048576 bytes") && detail.contains("decompresses"),
+        "{detail}"
+    );
     assert_eq!(server.store.counts().await.expect("counts"), before);
     server.stop().await;
+}
+
+/// `trapwise inspect` of fixtures, text and JSON, with and without the reading flags: each
+/// invocation with its exit code, stdout and stderr, pinned by the snapshot `inspect.txt`.
+#[test]
+fn inspect_shows_format_layout_datasets_and_missing_settings() {
+    let dir = format!("{}/tests/data/formats", env!("CARGO_MANIFEST_DIR"));
+    let runs: [&[&str]; 9] = [
+        &["record_xy.npz"],
+        &[
+            "record_xy.npz",
+            "--dataset",
+            "x",
+            "--dataset",
+            "y",
+            "--json",
+        ],
+        &["record_single.npz"],
+        &["record.npy.gz"],
+        &["record_semicolon.csv", "--json"],
+        &["record_um.csv"],
+        &["mixed_marks.csv"],
+        &["one_column_comma.csv", "--decimal-comma"],
+        &["not_an_archive.npz"],
+    ];
+    let mut transcript = String::new();
+    for run in runs {
+        let (file, flags) = run.split_first().expect("a file");
+        let output = binary()
+            .arg("inspect")
+            .arg(format!("{dir}/{file}"))
+            .args(flags)
+            .output()
+            .expect("run trapwise");
+        transcript.push_str(&format!(
+            "$ trapwise inspect {}\nexit {}\n{}{}\n",
+            run.join(" "),
+            output.status.code().unwrap_or(-1),
+            String::from_utf8_lossy(&output.stdout),
+            String::from_utf8_lossy(&output.stderr),
+        ));
+    }
+    check_snapshot("inspect.txt", &transcript);
 }
 
 on_both_backends!(
