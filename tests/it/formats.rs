@@ -95,11 +95,19 @@ async fn every_format_of_the_record_gives_the_npy_calibration(backend: Backend) 
     server.stop().await;
 }
 
+/// A refused upload: the fixture, extra fields, the problem code and the field it names.
+type BadCase = (
+    &'static str,
+    &'static [(&'static str, &'static str)],
+    &'static str,
+    Option<&'static str>,
+);
+
 async fn damaged_or_unchoosable_files_are_400_with_their_code_and_field(backend: Backend) {
     let db = TestDb::new(backend).await;
     let server = TestServer::start(&db, options()).await;
     let before = server.store.counts().await.expect("counts");
-    let cases: [(&str, &[(&str, &str)], &str, Option<&str>); 5] = [
+    let cases: [BadCase; 5] = [
         ("corrupt.csv.gz", &[], "compressed-corrupt", None),
         ("not_an_archive.npz", &[], "zip-corrupt", None),
         ("record_xy.npz", &[], "dataset-choice", Some("dataset")),
