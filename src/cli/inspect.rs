@@ -7,9 +7,9 @@
 //! inspected as `calibrate` would read it without giving the run conditions.
 
 use super::{EXIT_BAD_INPUT, Failure, open_file};
-use crate::ingest::{self, Delimiter, Format, IngestOptions};
+use crate::ingest::{self, IngestOptions};
 use crate::report;
-use crate::settings::{Settings, Value};
+use crate::settings::Settings;
 use clap::Args;
 use std::io::Write;
 use std::path::PathBuf;
@@ -52,23 +52,7 @@ fn options(args: &InspectArgs) -> Result<IngestOptions, Failure> {
                 .map_err(|e| Failure::new(EXIT_BAD_INPUT, e))?;
         }
     }
-    let choice = |key: &str| match settings.get(key) {
-        Some(Value::Choice(name)) => Some(*name),
-        _ => None,
-    };
-    Ok(IngestOptions {
-        format: choice("format").and_then(Format::parse_name),
-        delimiter: choice("delimiter").and_then(Delimiter::parse_name),
-        decimal_comma: match settings.get("decimal_comma") {
-            Some(Value::Boolean(b)) => Some(*b),
-            _ => None,
-        },
-        datasets: match settings.get("dataset") {
-            Some(Value::Names(names)) => names.clone(),
-            _ => Vec::new(),
-        },
-        ..IngestOptions::default()
-    })
+    Ok(settings.reading_options())
 }
 
 pub(super) fn run(args: &InspectArgs) -> Result<u8, Failure> {

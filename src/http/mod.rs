@@ -15,6 +15,7 @@
 pub mod admission;
 pub mod auth;
 mod calibrations;
+mod inspect;
 pub mod openapi;
 mod ops;
 mod page;
@@ -30,7 +31,7 @@ use axum::extract::{DefaultBodyLimit, MatchedPath, Request};
 use axum::http::{HeaderValue, header};
 use axum::middleware::Next;
 use axum::response::{IntoResponse, Response};
-use axum::routing::get;
+use axum::routing::{get, post};
 use metrics_exporter_prometheus::{PrometheusBuilder, PrometheusHandle};
 use problem::AppError;
 use std::future::Future;
@@ -203,6 +204,10 @@ pub fn app(state: AppState) -> Router {
         .route(
             "/instruments/{instrument}/traps/{trap}/history",
             get(calibrations::history),
+        )
+        .route(
+            "/inspect",
+            post(inspect::inspect).layer(DefaultBodyLimit::disable()),
         )
         .route("/settings", get(settings::list))
         .route("/openapi.json", get(ops::openapi));

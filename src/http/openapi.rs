@@ -2,7 +2,7 @@
 //! types, served at `/api/v1/openapi.json`. The query parameters of an upload that carry run
 //! settings are added from the settings table (`SettingParameters`), one per row.
 
-use super::{calibrations, ops, problem, settings, upload, wire};
+use super::{calibrations, inspect, ops, problem, settings, upload, wire};
 use crate::settings::{Kind, Range, SPECS, SettingSpec, Value};
 use utoipa::openapi::path::{Parameter, ParameterBuilder, ParameterIn};
 use utoipa::openapi::schema::{ObjectBuilder, Type};
@@ -116,6 +116,7 @@ impl Modify for SettingParameters {
     ),
     paths(
         upload::create,
+        inspect::inspect,
         calibrations::list,
         calibrations::one,
         calibrations::recording,

@@ -324,6 +324,28 @@ impl Settings {
 }
 
 impl Settings {
+    /// The options for reading a file given by the reading settings alone (`format`,
+    /// `delimiter`, `decimal_comma`, `dataset`, and the sample rate, unit and volts per count
+    /// when given), without the run conditions `resolve` requires: what `inspect` reads with.
+    pub fn reading_options(&self) -> IngestOptions {
+        IngestOptions {
+            format: self.choice("format", Format::parse_name).ok().flatten(),
+            sample_rate_hz: self.number("sample_rate_hz"),
+            unit: self.choice("units", parse_unit).ok().flatten(),
+            volts_per_count: self.number("volts_per_count"),
+            delimiter: self
+                .choice("delimiter", Delimiter::parse_name)
+                .ok()
+                .flatten(),
+            decimal_comma: self.boolean("decimal_comma"),
+            datasets: self
+                .names("dataset")
+                .map(<[String]>::to_vec)
+                .unwrap_or_default(),
+            ..IngestOptions::default()
+        }
+    }
+
     /// The stage drive: frequency and amplitude together, or neither; the other drive
     /// settings only with them (a standard error of zero, the stated default, is always
     /// accepted).

@@ -198,7 +198,43 @@ fn inspect_shows_format_layout_datasets_and_missing_settings() {
     check_snapshot("inspect.txt", &transcript);
 }
 
+async fn inspect_endpoint_answers_what_the_file_holds_and_stores_nothing(backend: Backend) {
+    let db = TestDb::new(backend).await;
+    let server = TestServer::start(&db, options()).await;
+    let before = server.store.counts().await.expect("counts");
+    let post = |query: &str, name: &str| {
+        server
+            .client
+            .post(server.url(&format!("/api/v1/inspect?{query}")))
+            .header("content-type", "application/octet-stream")
+            .body(fixture(name))
+            .send()
+    };
+    let response = post(
+        "file_name=record_xy.npz&dataset=x&dataset=y",
+        "record_xy.npz",
+    )
+    .await
+    .expect("inspect");
+    assert_eq!(response.status().as_u16(), 200);
+    let doc: Value = response.json().await.expect("JSON");
+    assert_eq!(doc["format"], "npz");
+    assert_eq!(doc["chosen"], serde_json::json!(["x", "y"]));
+    assert_eq!(doc["datasets"][1]["shape"], "(8192,)");
+    assert_eq!(doc["missing"][0]["field"], "sample_rate_hz");
+    assert_eq!(doc["missing"][0]["flag"], "--sample-rate HZ");
+    let response = post("file_name=not_an_archive.npz", "not_an_archive.npz")
+        .await
+        .expect("inspect");
+    assert_eq!(response.status().as_u16(), 400);
+    let problem: Value = response.json().await.expect("JSON");
+    assert_eq!(problem["code"], "zip-corrupt", "{problem}");
+    assert_eq!(server.store.counts().await.expect("counts"), before);
+    server.stop().await;
+}
+
 on_both_backends!(
+    inspect_endpoint_answers_what_the_file_holds_and_stores_nothing,
     every_format_of_the_record_gives_the_npy_calibration,
     damaged_or_unchoosable_files_are_400_with_their_code_and_field,
     a_compression_bomb_is_413_and_stores_nothing,
