@@ -54,7 +54,22 @@ pub fn run_from(
     settings: &Settings,
     with_plots: bool,
 ) -> Result<CalibrationReport, PipelineError> {
-    let (ingest_options, conditions, analysis) = settings.resolve()?;
+    let limit = ingest::DEFAULT_MAX_DECOMPRESSED_BYTES;
+    run_from_limited(file_name, source, size_hint, settings, with_plots, limit)
+}
+
+/// `run_from` with a limit on the decompressed size of a compressed file, bytes (the service
+/// passes its upload limit, so that a small compressed upload cannot expand past it).
+pub fn run_from_limited(
+    file_name: &str,
+    source: &mut (dyn Read + Send),
+    size_hint: Option<usize>,
+    settings: &Settings,
+    with_plots: bool,
+    max_decompressed_bytes: u64,
+) -> Result<CalibrationReport, PipelineError> {
+    let (mut ingest_options, conditions, analysis) = settings.resolve()?;
+    ingest_options.max_decompressed_bytes = max_decompressed_bytes;
     let (read, sha256) = std::thread::scope(|scope| {
         let (mut ahead, digest) = ReadAhead::start(scope, source);
         let read = ingest::read(file_name, &mut ahead, size_hint, &ingest_options);

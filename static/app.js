@@ -502,13 +502,15 @@ function submitUpload(event) {
     const value = $(`f-${name}`).value.trim();
     if (value) form.append(name, value);
   }
-  // Every setting with a control, in the table's order. An unticked box is left out when its
-  // default is false (as the service would take it anyway), and sent as false otherwise.
+  // Every setting with a control, in the table's order. An unticked box is sent as false only
+  // when its default is true; otherwise it is left out, as the service takes a default of false
+  // anyway, and a box without a stated default (decimal_comma, told from the file) must stay
+  // unset rather than be forced to false.
   for (const spec of SETTINGS) {
     const control = $(`f-${spec.key}`);
     if (!control) continue;
     let value = controlText(control).trim();
-    if (control.type === "checkbox" && !value && spec.default !== "false") value = "false";
+    if (control.type === "checkbox" && !value && spec.default === "true") value = "false";
     if (value) form.append(spec.key, value);
   }
   const file = $("f-file").files[0];

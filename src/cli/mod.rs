@@ -13,6 +13,7 @@
 //! `serve` and `token` read the service configuration from the environment (`config`).
 
 mod calibrate;
+mod inspect;
 mod run_args;
 mod serve;
 mod simulate;
@@ -23,6 +24,7 @@ use clap::{Parser, Subcommand};
 use std::path::PathBuf;
 
 pub use calibrate::CalibrateArgs;
+pub use inspect::InspectArgs;
 pub use run_args::RunArgs;
 pub use serve::ServeArgs;
 pub use simulate::SimulateArgs;
@@ -53,6 +55,8 @@ pub struct Cli {
 pub enum Command {
     /// Calibrate one recording offline and print the result.
     Calibrate(CalibrateArgs),
+    /// Show what a file holds and how it would be read, and the settings it lacks.
+    Inspect(InspectArgs),
     /// Write exact simulated recordings with a known truth.
     Simulate(SimulateArgs),
     /// Run the calibration service (HTTP API, SQLite or PostgreSQL storage).
@@ -83,6 +87,7 @@ impl Failure {
 pub fn run(cli: Cli) -> Result<u8, Failure> {
     match cli.command {
         Command::Calibrate(args) => calibrate::run(&args),
+        Command::Inspect(args) => inspect::run(&args),
         Command::Simulate(args) => simulate::run(&args),
         Command::Serve(args) => serve::run(&args),
         Command::Upload(args) => upload::run(&args),

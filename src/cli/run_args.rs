@@ -60,6 +60,8 @@ fn arg(spec: &'static SettingSpec) -> Arg {
                 .value_parser(move |text: &str| spec.kind.parse(text).map(|_| text.to_string()));
             if spec.kind == Kind::Boolean {
                 arg.num_args(0..=1).default_missing_value("true")
+            } else if spec.repeatable() {
+                arg.action(ArgAction::Append)
             } else {
                 arg
             }
@@ -89,6 +91,10 @@ impl FromArgMatches for RunArgs {
         let internal = |e: &dyn std::fmt::Display| clap::Error::raw(ErrorKind::ValueValidation, e);
         for spec in SPECS {
             let text = match spec.flag {
+                Flag::Value { .. } if spec.repeatable() => matches
+                    .try_get_many::<String>(spec.key)
+                    .map_err(|e| internal(&e))?
+                    .map(|names| names.cloned().collect::<Vec<_>>().join(",")),
                 Flag::Value { .. } => matches
                     .try_get_one::<String>(spec.key)
                     .map_err(|e| internal(&e))?

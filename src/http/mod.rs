@@ -18,6 +18,7 @@ pub mod auth;
 mod calibrations;
 pub mod connections;
 mod idle;
+mod inspect;
 pub mod openapi;
 mod ops;
 mod page;
@@ -33,7 +34,7 @@ use axum::extract::{DefaultBodyLimit, MatchedPath, Request};
 use axum::http::{HeaderValue, header};
 use axum::middleware::Next;
 use axum::response::{IntoResponse, Response};
-use axum::routing::get;
+use axum::routing::{get, post};
 use connections::ClientCounts;
 use metrics_exporter_prometheus::{PrometheusBuilder, PrometheusHandle};
 use problem::AppError;
@@ -259,6 +260,10 @@ pub fn app(state: AppState) -> Router {
         .route(
             "/instruments/{instrument}/traps/{trap}/history",
             get(calibrations::history),
+        )
+        .route(
+            "/inspect",
+            post(inspect::inspect).layer(DefaultBodyLimit::disable()),
         )
         .route("/settings", get(settings::list))
         .route("/openapi.json", get(ops::openapi));

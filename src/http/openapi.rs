@@ -5,7 +5,7 @@
 //! the raw recording (`UploadBody`); and the error answers every operation can give
 //! (`ErrorResponses`), so that each status the service answers is documented.
 
-use super::{calibrations, ops, problem, settings, upload, wire};
+use super::{calibrations, inspect, ops, problem, settings, upload, wire};
 use crate::settings::{Kind, SPECS, SettingSpec, Value};
 use utoipa::openapi::content::ContentBuilder;
 use utoipa::openapi::path::{Operation, Parameter, ParameterBuilder, ParameterIn};
@@ -285,6 +285,7 @@ impl Modify for ErrorResponses {
     ),
     paths(
         upload::create,
+        inspect::inspect,
         calibrations::list,
         calibrations::one,
         calibrations::recording,

@@ -432,6 +432,13 @@ fn ingest_field(e: &IngestError) -> Option<&'static str> {
         | IngestError::VoltsPerCountInvalid { .. }
         | IngestError::VoltsPerCountUnitConflict { .. } => Some("volts_per_count"),
         IngestError::UnitRequired { .. } | IngestError::UnitConflict { .. } => Some("units"),
+        IngestError::DelimiterAmbiguous { .. } => Some("delimiter"),
+        IngestError::DecimalMarkAmbiguous { .. } | IngestError::DecimalCommaConflict { .. } => {
+            Some("decimal_comma")
+        }
+        IngestError::DatasetMissing { .. }
+        | IngestError::DatasetChoice { .. }
+        | IngestError::DatasetUnusable { .. } => Some("dataset"),
         _ => None,
     }
 }
@@ -489,6 +496,15 @@ impl From<PipelineError> for AppError {
             PipelineError::Settings(s) => s.into(),
             // The staged upload could not be read back: the server's fault, not the client's.
             PipelineError::Ingest(i @ IngestError::Read { .. }) => AppError::internal(i),
+            // A compressed upload counts by its decompressed size: past the limit it is too
+            // large like any other.
+            PipelineError::Ingest(IngestError::DecompressedTooLarge { limit_bytes, .. }) => {
+                AppError::TooLarge {
+                    limit_bytes,
+                    hint: "the file decompresses past it; send it uncompressed or in parts, or \
+                           ask the operator to raise TRAPWISE_MAX_UPLOAD_BYTES",
+                }
+            }
             PipelineError::Ingest(i) => {
                 let field = ingest_field(&i).map(str::to_string);
                 if i.is_unsupported_format() {

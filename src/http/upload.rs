@@ -348,8 +348,15 @@ fn split_fields(
     pairs: Vec<(String, String)>,
     part_file_name: Option<String>,
 ) -> Result<(Settings, Labels), AppError> {
-    let mut map = BTreeMap::new();
+    let mut map: BTreeMap<String, String> = BTreeMap::new();
     for (key, value) in pairs {
+        // A list setting (`dataset`) may be repeated, one name per field; the names join.
+        let repeatable = crate::settings::spec::spec(&key).is_some_and(|s| s.repeatable());
+        if let (true, Some(names)) = (repeatable, map.get_mut(&key)) {
+            names.push(',');
+            names.push_str(&value);
+            continue;
+        }
         if map.contains_key(&key) {
             return Err(AppError::bad_field(
                 "duplicate-field",
@@ -585,17 +592,19 @@ pub(crate) async fn create(
     let path = staged.path().to_path_buf();
     let file_name = labels.file_name.clone();
     let run_settings = settings.clone();
+    let max_upload_bytes = state.max_upload_bytes();
     let started = Instant::now();
     let outcome = tokio::task::spawn_blocking(move || {
         let _permit = permit;
         let mut file = std::fs::File::open(&path)?;
         let size = usize::try_from(file.metadata()?.len()).ok();
-        Ok::<_, std::io::Error>(pipeline::run_from(
+        Ok::<_, std::io::Error>(pipeline::run_from_limited(
             &file_name,
             &mut file,
             size,
             &run_settings,
             true,
+            max_upload_bytes,
         ))
     })
     .await

@@ -26,7 +26,7 @@ pub enum IngestError {
     /// No format was given and neither the extension nor the content tells it.
     #[error(
         "{file}: cannot tell the file format from {reason}; give the format explicitly \
-         (csv, tsv, columns, raw-f32, raw-f64, raw-i16 or npy)"
+         (csv, tsv, columns, raw-f32, raw-f64, raw-i16, npy or npz)"
     )]
     UnknownFormat {
         /// File name as given by the caller.
@@ -145,7 +145,7 @@ pub enum IngestError {
     /// A header names a unit that is not nm or V (positions) or s, ms, us (time).
     #[error(
         "{file}: line {line}, column {column}: unit '{unit}' is not supported here; positions \
-         must be in nm or V and the time column in s, ms or us"
+         must be in nm or V (um and mV are converted) and the time column in s, ms or us"
     )]
     UnsupportedUnit {
         /// File name as given by the caller.
@@ -255,7 +255,8 @@ pub enum IngestError {
     /// A data cell is not a number.
     #[error(
         "{file}: line {line}, column {column}: '{cell}' is not a number; write plain decimal \
-         numbers such as -1.25e-3 with '.' as the decimal point"
+         numbers such as -1.25e-3 with '.' as the decimal point, or -1,25e-3 with a decimal \
+         comma between ';' (--delimiter ';' --decimal-comma)"
     )]
     NonNumericCell {
         /// File name as given by the caller.
@@ -663,6 +664,119 @@ pub enum IngestError {
         /// The value given, or "none".
         given: String,
     },
+
+    /// The first lines of a text table allow more than one cell separator.
+    #[error(
+        "{file}: line {line}: cannot tell how the cells are separated: {seen}; give the \
+         delimiter (--delimiter ';', --delimiter ',' or --delimiter tab; field delimiter)"
+    )]
+    DelimiterAmbiguous {
+        /// File name as given by the caller.
+        file: String,
+        /// The line that allows two readings.
+        line: usize,
+        /// What was seen there.
+        seen: String,
+    },
+
+    /// The first rows of a text table allow a decimal comma as well as a decimal point.
+    #[error(
+        "{file}: line {line}: cannot tell the decimal mark: {seen}; say which with \
+         --decimal-comma or --decimal-comma false (field decimal_comma)"
+    )]
+    DecimalMarkAmbiguous {
+        /// File name as given by the caller.
+        file: String,
+        /// The line that allows two readings.
+        line: usize,
+        /// What was seen.
+        seen: String,
+    },
+
+    /// The comma was asked to be both the cell separator and the decimal mark.
+    #[error(
+        "{file}: the comma cannot be both the delimiter and the decimal mark; give another \
+         delimiter (--delimiter ';') or leave out --decimal-comma"
+    )]
+    DecimalCommaConflict {
+        /// File name as given by the caller.
+        file: String,
+    },
+
+    /// A compressed file decompresses to more than the limit (a compression bomb, or a file
+    /// too large for this service).
+    #[error(
+        "{file}: byte offset {byte_offset} of the compressed file: it decompresses to more than \
+         {limit_bytes} bytes, the limit; decompress it and send the parts, or ask for a larger \
+         limit"
+    )]
+    DecompressedTooLarge {
+        /// File name as given by the caller.
+        file: String,
+        /// Compressed bytes read when the limit was passed.
+        byte_offset: u64,
+        /// The limit on the decompressed size, bytes.
+        limit_bytes: u64,
+    },
+
+    /// A gzip stream is damaged or cut short.
+    #[error(
+        "{file}: byte offset {byte_offset} of the compressed file: the gzip data is corrupt: \
+         {reason}; compress the recording again"
+    )]
+    CompressedCorrupt {
+        /// File name as given by the caller.
+        file: String,
+        /// Compressed bytes read when the fault was found.
+        byte_offset: u64,
+        /// What the decompressor reported.
+        reason: String,
+    },
+
+    /// A `.npz` file is not a readable zip archive, or one of its members cannot be read.
+    #[error("{file}: the zip archive cannot be read: {reason}; save it again with numpy.savez")]
+    ZipCorrupt {
+        /// File name as given by the caller.
+        file: String,
+        /// What the zip reader reported.
+        reason: String,
+    },
+
+    /// A dataset asked for is not in the file.
+    #[error("{file}: no dataset '{name}' in the file; it holds {available}")]
+    DatasetMissing {
+        /// File name as given by the caller.
+        file: String,
+        /// The name asked for.
+        name: String,
+        /// The datasets the file holds, with shapes and types.
+        available: String,
+    },
+
+    /// No dataset was named and the file does not hold exactly one that can be the recording.
+    #[error(
+        "{file}: {problem}; name the dataset of each axis with --dataset NAME (field dataset), \
+         the file holds {available}"
+    )]
+    DatasetChoice {
+        /// File name as given by the caller.
+        file: String,
+        /// Why none could be chosen.
+        problem: String,
+        /// The datasets the file holds, with shapes and types.
+        available: String,
+    },
+
+    /// Datasets named for the axes cannot be put together as one recording.
+    #[error("{file}: dataset '{name}' {problem}")]
+    DatasetUnusable {
+        /// File name as given by the caller.
+        file: String,
+        /// The dataset.
+        name: String,
+        /// What is wrong with it and how to fix it.
+        problem: String,
+    },
 }
 
 impl IngestError {
@@ -717,6 +831,15 @@ impl IngestError {
             IngestError::EncodeValue { .. } => "encode-value",
             IngestError::EncodeUnit => "encode-unit",
             IngestError::EncodeVoltsPerCount { .. } => "encode-volts-per-count",
+            IngestError::DelimiterAmbiguous { .. } => "delimiter-ambiguous",
+            IngestError::DecimalMarkAmbiguous { .. } => "decimal-mark-ambiguous",
+            IngestError::DecimalCommaConflict { .. } => "decimal-comma-conflict",
+            IngestError::DecompressedTooLarge { .. } => "decompressed-too-large",
+            IngestError::CompressedCorrupt { .. } => "compressed-corrupt",
+            IngestError::ZipCorrupt { .. } => "zip-corrupt",
+            IngestError::DatasetMissing { .. } => "dataset-missing",
+            IngestError::DatasetChoice { .. } => "dataset-choice",
+            IngestError::DatasetUnusable { .. } => "dataset-unusable",
         }
     }
 

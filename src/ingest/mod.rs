@@ -12,24 +12,35 @@
 //!
 //! Formats read:
 //! - `csv` / `tsv`: a header row naming an optional time column and one to three position
-//!   columns (see `text`), comma or tab separated;
+//!   columns (see `text`), comma, semicolon or tab separated, with a decimal point or, in
+//!   semicolon-separated files, a decimal comma (see `layout`);
 //! - `columns`: headerless numeric columns, one to three positions, comma, tab or space
 //!   separated;
 //! - `raw-f32`, `raw-f64`, `raw-i16`: little-endian samples, channels interleaved;
-//! - `npy`: NumPy's array file (NEP 1, format versions 1.0 and 2.0).
+//! - `npy`: NumPy's array file (NEP 1, format versions 1.0 and 2.0);
+//! - `npz`: NumPy's zip archive of `.npy` members, stored or deflated (see `npz`).
+//!
+//! Any of them may be gzip-compressed (`.gz`, told by its magic bytes): it is decompressed as
+//! it is read, up to `IngestOptions::max_decompressed_bytes` (see `compressed`).
 
 mod binary;
+mod compressed;
 mod error;
+mod inspect;
+mod layout;
 mod npy;
+mod npz;
 mod stream;
 mod text;
 mod write;
 
 pub use error::IngestError;
+pub use inspect::{Column, Dataset, Inspection, inspect};
 pub use stream::READ_CHUNK_BYTES;
 pub use write::encode;
 
 use crate::recording::{AxisTrace, PositionUnit, Recording};
+use std::io::Read;
 
 /// Minimum number of samples per axis a recording must have.
 ///
@@ -58,11 +69,13 @@ pub enum Format {
     RawI16,
     /// NumPy `.npy` array file (NEP 1).
     Npy,
+    /// NumPy `.npz` archive of `.npy` members.
+    Npz,
 }
 
 impl Format {
     /// Every format, in a stable order (for help texts and tests).
-    pub const ALL: [Format; 7] = [
+    pub const ALL: [Format; 8] = [
         Format::Csv,
         Format::Tsv,
         Format::Columns,
@@ -70,13 +83,14 @@ impl Format {
         Format::RawF64,
         Format::RawI16,
         Format::Npy,
+        Format::Npz,
     ];
 
     /// The format with the given name (`name()`) or short alias (`f32`, `f64`, `i16`),
     /// ignoring ASCII case and surrounding whitespace; `None` for anything else.
     pub fn parse_name(s: &str) -> Option<Format> {
         let s = s.trim();
-        let candidates: [(&str, Format); 10] = [
+        let candidates: [(&str, Format); 11] = [
             ("csv", Format::Csv),
             ("tsv", Format::Tsv),
             ("columns", Format::Columns),
@@ -84,6 +98,7 @@ impl Format {
             ("raw-f64", Format::RawF64),
             ("raw-i16", Format::RawI16),
             ("npy", Format::Npy),
+            ("npz", Format::Npz),
             ("f32", Format::RawF32),
             ("f64", Format::RawF64),
             ("i16", Format::RawI16),
@@ -104,6 +119,7 @@ impl Format {
             Format::RawF64 => "raw-f64",
             Format::RawI16 => "raw-i16",
             Format::Npy => "npy",
+            Format::Npz => "npz",
         }
     }
 
@@ -117,6 +133,34 @@ impl Format {
             Format::RawF64 => "f64",
             Format::RawI16 => "i16",
             Format::Npy => "npy",
+            Format::Npz => "npz",
+        }
+    }
+}
+
+/// The cell separator of a text table, when given instead of told from the file.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Delimiter {
+    /// `,`.
+    Comma,
+    /// `;`, as spreadsheet programs write CSV where the comma is the decimal mark.
+    Semicolon,
+    /// A tab.
+    Tab,
+    /// Runs of spaces and tabs.
+    Whitespace,
+}
+
+impl Delimiter {
+    /// The delimiter with the given name (`comma`, `semicolon`, `tab`, `space`) or the
+    /// character itself (`,` or `;`), ignoring ASCII case and surrounding whitespace.
+    pub fn parse_name(s: &str) -> Option<Delimiter> {
+        match s.trim().to_ascii_lowercase().as_str() {
+            "comma" | "," => Some(Delimiter::Comma),
+            "semicolon" | ";" => Some(Delimiter::Semicolon),
+            "tab" => Some(Delimiter::Tab),
+            "space" | "whitespace" => Some(Delimiter::Whitespace),
+            _ => None,
         }
     }
 }
@@ -139,7 +183,23 @@ pub struct IngestOptions {
     pub volts_per_count: Option<f64>,
     /// Relative tolerance on uniform time steps and on sample-rate agreement (default 1e-3).
     pub time_tolerance: f64,
+    /// Cell separator of a text table; `None` tells it from the header and first rows.
+    pub delimiter: Option<Delimiter>,
+    /// Whether text cells use the decimal comma; `None` tells it from the first rows.
+    pub decimal_comma: Option<bool>,
+    /// Members of an archive (`.npz`) to read, one per axis, or one two-dimensional member;
+    /// empty chooses the one numeric member of at least `MIN_SAMPLES` samples.
+    pub datasets: Vec<String>,
+    /// Most bytes a compressed file (or an archive member) may decompress to; past it the file
+    /// is refused (`IngestError::DecompressedTooLarge`), so a small file cannot make the reader
+    /// fill memory or disk.
+    pub max_decompressed_bytes: u64,
 }
+
+/// Default of `IngestOptions::max_decompressed_bytes`, bytes: 4 GiB, above the service's
+/// default upload limit of 1 GiB (which the service passes instead) and above any text
+/// recording of 2^25 samples per axis (common practice; not tuned).
+pub const DEFAULT_MAX_DECOMPRESSED_BYTES: u64 = 4 << 30;
 
 impl Default for IngestOptions {
     fn default() -> Self {
@@ -150,6 +210,10 @@ impl Default for IngestOptions {
             channels: None,
             volts_per_count: None,
             time_tolerance: DEFAULT_TIME_TOLERANCE,
+            delimiter: None,
+            decimal_comma: None,
+            datasets: Vec::new(),
+            max_decompressed_bytes: DEFAULT_MAX_DECOMPRESSED_BYTES,
         }
     }
 }
@@ -162,8 +226,8 @@ const SNIFF_BYTES: usize = 64 * 1024;
 
 /// Decides the format of a file from its name and first bytes.
 ///
-/// Rules, in order: bytes starting with the `.npy` magic string are `Npy` whatever the name;
-/// then the extension (ASCII case ignored): `.npy`, `.f32`, `.f64`, `.i16` name their format;
+/// Rules, in order: bytes starting with the `.npy` magic string are `Npy` whatever the name,
+/// and a zip file is `Npz`; then the extension (ASCII case ignored): `.npy`, `.npz`, `.f32`, `.f64`, `.i16` name their format;
 /// `.csv` and `.tsv` are `Csv` and `Tsv` unless their first non-comment line is all numbers,
 /// which makes them headerless `Columns`; `.txt`, `.dat` and names without a known extension
 /// are sniffed: text (UTF-8 with digits and line breaks, no control bytes) whose first
@@ -172,6 +236,9 @@ const SNIFF_BYTES: usize = 64 * 1024;
 pub fn detect_format(file_name: &str, bytes: &[u8]) -> Result<Format, IngestError> {
     if bytes.starts_with(NPY_MAGIC) {
         return Ok(Format::Npy);
+    }
+    if bytes.starts_with(npz::ZIP_MAGIC) {
+        return Ok(Format::Npz);
     }
     let base = file_name.rsplit(['/', '\\']).next().unwrap_or(file_name);
     let extension = base
@@ -183,6 +250,7 @@ pub fn detect_format(file_name: &str, bytes: &[u8]) -> Result<Format, IngestErro
     };
     match extension.as_deref() {
         Some("npy") => Ok(Format::Npy),
+        Some("npz") => Ok(Format::Npz),
         Some("f32") => Ok(Format::RawF32),
         Some("f64") => Ok(Format::RawF64),
         Some("i16") => Ok(Format::RawI16),
@@ -260,6 +328,61 @@ fn read_in_pieces(
     chunk_bytes: usize,
 ) -> Result<(Recording, Format), IngestError> {
     validate_options(file_name, options)?;
+    let mut magic = [0u8; 2];
+    let n_magic = read_prefix(file_name, source, &mut magic)?;
+    let head = magic.get(..n_magic).unwrap_or_default();
+    let mut rejoined = head.chain(source);
+    if head == compressed::GZIP_MAGIC {
+        let mut inflated = compressed::Inflated::new(&mut rejoined, options.max_decompressed_bytes);
+        let inner = compressed::inner_name(file_name);
+        let read = read_plain(file_name, inner, &mut inflated, None, options, chunk_bytes);
+        return read.map_err(|e| inflated.explain(file_name, e));
+    }
+    read_plain(
+        file_name,
+        file_name,
+        &mut rejoined,
+        size_hint,
+        options,
+        chunk_bytes,
+    )
+}
+
+/// Reads the first bytes of a stream into `out` (fewer only at its end); returns how many.
+fn read_prefix(
+    file: &str,
+    source: &mut dyn std::io::Read,
+    out: &mut [u8],
+) -> Result<usize, IngestError> {
+    let mut filled = 0;
+    while let Some(rest) = out.get_mut(filled..).filter(|rest| !rest.is_empty()) {
+        match source.read(rest) {
+            Ok(0) => break,
+            Ok(n) => filled += n,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+            Err(e) => {
+                return Err(IngestError::Read {
+                    file: file.to_string(),
+                    byte_offset: filled,
+                    reason: e.to_string(),
+                });
+            }
+        }
+    }
+    Ok(filled)
+}
+
+/// `read_in_pieces` of a stream that is not compressed (or already decompressed): `inner_name`
+/// is the name whose extension tells the format (`rec.csv` for `rec.csv.gz`), `file_name` the
+/// one messages give.
+fn read_plain(
+    file_name: &str,
+    inner_name: &str,
+    source: &mut dyn std::io::Read,
+    size_hint: Option<usize>,
+    options: &IngestOptions,
+    chunk_bytes: usize,
+) -> Result<(Recording, Format), IngestError> {
     let mut chunks = stream::LineChunks::new(file_name, source, chunk_bytes);
     chunks.fill(SNIFF_BYTES)?;
     if chunks.unread().is_empty() {
@@ -269,7 +392,13 @@ fn read_in_pieces(
     }
     let format = match options.format {
         Some(format) => format,
-        None => detect_format(file_name, chunks.unread())?,
+        None => detect_format(inner_name, chunks.unread()).map_err(|e| match e {
+            IngestError::UnknownFormat { reason, .. } => IngestError::UnknownFormat {
+                file: file_name.to_string(),
+                reason,
+            },
+            other => other,
+        })?,
     };
     let recording = match format {
         Format::Csv | Format::Tsv | Format::Columns => {
@@ -277,7 +406,13 @@ fn read_in_pieces(
             // split; tests with tiny pieces split (almost) every piece, and a whole-file read
             // in one piece splits none, which makes it the sequential reference.
             let split = text::Split::on_this_machine(chunk_bytes.min(text::SPLIT_MIN_BYTES));
-            text::read_text(file_name, chunks, format, options, size_hint, split)?
+            // The first `SNIFF_BYTES` (or the whole of a shorter file) are in the buffer whatever
+            // the piece size, so the layout does not depend on it.
+            let unread = chunks.unread();
+            let prefix = unread.get(..SNIFF_BYTES).unwrap_or(unread);
+            let whole = prefix.len() < SNIFF_BYTES;
+            let layout = layout::decide(file_name, prefix, whole, format, options)?;
+            text::read_text(file_name, chunks, format, layout, options, size_hint, split)?
         }
         Format::RawF32 | Format::RawF64 | Format::RawI16 => {
             let bytes = chunks.into_remaining(size_hint)?;
@@ -286,6 +421,10 @@ fn read_in_pieces(
         Format::Npy => {
             let bytes = chunks.into_remaining(size_hint)?;
             npy::parse_npy(file_name, &bytes, options)?
+        }
+        Format::Npz => {
+            let bytes = chunks.into_remaining(size_hint)?;
+            npz::parse_npz(file_name, &bytes, options)?
         }
     };
     Ok((recording, format))
@@ -431,3 +570,7 @@ fn finish(
 
 #[cfg(test)]
 mod tests;
+
+#[cfg(test)]
+#[path = "format_tests.rs"]
+mod format_tests;

@@ -18,11 +18,11 @@ use super::{
     Format, IngestError, IngestOptions, MIN_SAMPLES, NPY_MAGIC, finish_unlabelled, integer_scale,
     required_rate, required_unit,
 };
-use crate::recording::Recording;
+use crate::recording::{PositionUnit, Recording};
 
 /// A supported element type.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-enum Dtype {
+pub(super) enum Dtype {
     /// `<f4`: little-endian binary32.
     F4,
     /// `<f8`: little-endian binary64.
@@ -101,12 +101,58 @@ struct NpyHeader {
     shape: Vec<usize>,
 }
 
-/// Reads a `.npy` file (see the module documentation for what is accepted).
-pub(super) fn parse_npy(
-    file: &str,
-    bytes: &[u8],
-    options: &IngestOptions,
-) -> Result<Recording, IngestError> {
+/// A `.npy` array whose header has been read: what it holds and where its data lies.
+#[derive(Debug)]
+pub(super) struct NpyArray<'a> {
+    /// The descr text as written (a structured descr as its raw Python text).
+    pub(super) descr: String,
+    /// The element type, if supported.
+    dtype: Option<Dtype>,
+    /// The array shape.
+    pub(super) shape: Vec<usize>,
+    /// Whether the data is in Fortran (column-major) order.
+    fortran_order: bool,
+    /// Offset of the header dictionary in the file.
+    header_start: usize,
+    /// Offset of the data in the file.
+    data_start: usize,
+    /// The data bytes (everything after the header).
+    data: &'a [u8],
+}
+
+/// How the stored rows and columns of a 1-D or 2-D array map to samples and axes.
+#[derive(Clone, Copy, Debug)]
+pub(super) struct Grid {
+    /// Rows as stored.
+    n_rows: usize,
+    /// Columns as stored.
+    n_cols: usize,
+    /// Whether rows are samples (else axes).
+    rows_are_samples: bool,
+}
+
+impl Grid {
+    /// Samples per axis.
+    pub(super) fn n_samples(self) -> usize {
+        if self.rows_are_samples {
+            self.n_rows
+        } else {
+            self.n_cols
+        }
+    }
+
+    /// Number of axes.
+    pub(super) fn n_axes(self) -> usize {
+        if self.rows_are_samples {
+            self.n_cols
+        } else {
+            self.n_rows
+        }
+    }
+}
+
+/// Reads the magic string, the version and the header dictionary of a `.npy` file.
+pub(super) fn read_array<'a>(file: &str, bytes: &'a [u8]) -> Result<NpyArray<'a>, IngestError> {
     let bad_header = |byte_offset: usize, reason: &str| IngestError::NpyBadHeader {
         file: file.to_string(),
         byte_offset,
@@ -160,101 +206,178 @@ pub(super) fn parse_npy(
     };
     let header = parse_header_dict(header_bytes)
         .map_err(|(idx, reason)| bad_header(header_start + idx, &reason))?;
-    let dtype = match &header.descr {
-        Ok(descr) => Dtype::from_descr(descr),
-        Err(_) => None,
+    let dtype = header.descr.as_deref().ok().and_then(Dtype::from_descr);
+    let descr = match header.descr {
+        Ok(descr) | Err(descr) => descr,
     };
-    let Some(dtype) = dtype else {
-        let raw = match header.descr {
-            Ok(descr) | Err(descr) => descr,
-        };
-        return Err(IngestError::NpyUnsupportedDtype {
-            file: file.to_string(),
-            byte_offset: header_start,
-            dtype: raw.chars().take(40).collect(),
-        });
-    };
-    let shape_text = format_shape(&header.shape);
-    let unsupported_shape = || IngestError::NpyUnsupportedShape {
-        file: file.to_string(),
-        byte_offset: header_start,
-        shape: shape_text.clone(),
-    };
-    // Rows and columns of the array as stored, and whether rows are samples (else axes).
-    let (n_rows, n_cols, rows_are_samples) = match header.shape.as_slice() {
-        [n] => (*n, 1, true),
-        [n, c] if (1..=3).contains(c) => (*n, *c, true),
-        [c, n] if (1..=3).contains(c) => (*c, *n, false),
-        _ => return Err(unsupported_shape()),
-    };
-    let (n_samples, n_axes) = if rows_are_samples {
-        (n_rows, n_cols)
-    } else {
-        (n_cols, n_rows)
-    };
-    let expected_bytes = n_rows
-        .checked_mul(n_cols)
-        .and_then(|n| n.checked_mul(dtype.item_bytes()))
-        .ok_or_else(|| bad_header(header_start, "the shape is too large for this machine"))?;
-    let data = bytes.get(data_start..).unwrap_or_default();
-    if data.len() < expected_bytes {
-        return Err(IngestError::NpyTruncated {
-            file: file.to_string(),
-            byte_offset: bytes.len(),
-            expected_bytes,
-            found_bytes: data.len(),
-        });
+    Ok(NpyArray {
+        descr,
+        dtype,
+        shape: header.shape,
+        fortran_order: header.fortran_order,
+        header_start,
+        data_start,
+        data: bytes.get(data_start..).unwrap_or_default(),
+    })
+}
+
+impl NpyArray<'_> {
+    /// The shape as Python writes it: `(4096, 2)`.
+    pub(super) fn shape_text(&self) -> String {
+        format_shape(&self.shape)
     }
-    if data.len() > expected_bytes {
-        return Err(IngestError::NpyTrailingBytes {
-            file: file.to_string(),
-            byte_offset: data_start + expected_bytes,
-            extra_bytes: data.len() - expected_bytes,
-        });
+
+    /// Whether the element type is one trapwise reads.
+    pub(super) fn is_supported(&self) -> bool {
+        self.dtype.is_some()
     }
-    let (scale, unit) = if dtype.is_integer() {
-        let descr = header.descr.as_deref().unwrap_or_default();
-        integer_scale(file, descr, options, true)?
-    } else {
-        (1.0, required_unit(file, Format::Npy.name(), options)?)
-    };
-    let sample_rate_hz = required_rate(file, Format::Npy, options)?;
-    if n_samples < MIN_SAMPLES {
-        return Err(IngestError::TooFewSamples {
-            file: file.to_string(),
-            found: n_samples,
-        });
+
+    /// Whether the elements are integers (scaled by the volts per count).
+    pub(super) fn is_integer(&self) -> bool {
+        self.dtype.is_some_and(Dtype::is_integer)
     }
-    // Element (row r, column c) is at flat index r * n_cols + c in C order and c * n_rows + r in
-    // Fortran order (NEP 1). Decode in storage order, then place each value in its axis.
-    let mut axes: Vec<Vec<f64>> = (0..n_axes).map(|_| vec![0.0; n_samples]).collect();
-    let item_bytes = dtype.item_bytes();
-    for (flat_idx, element) in data.chunks_exact(item_bytes).enumerate() {
-        let (row, col) = if header.fortran_order {
-            (flat_idx % n_rows.max(1), flat_idx / n_rows.max(1))
-        } else {
-            (flat_idx / n_cols, flat_idx % n_cols)
+
+    /// The element type, or the error naming the one found.
+    fn dtype(&self, file: &str) -> Result<Dtype, IngestError> {
+        self.dtype.ok_or_else(|| IngestError::NpyUnsupportedDtype {
+            file: file.to_string(),
+            byte_offset: self.header_start,
+            dtype: self.descr.chars().take(40).collect(),
+        })
+    }
+
+    /// The samples-by-axes reading of the shape (see the module documentation), if it has one.
+    pub(super) fn grid(&self) -> Option<Grid> {
+        let (n_rows, n_cols, rows_are_samples) = match self.shape.as_slice() {
+            [n] => (*n, 1, true),
+            [n, c] if (1..=3).contains(c) => (*n, *c, true),
+            [c, n] if (1..=3).contains(c) => (*c, *n, false),
+            _ => return None,
         };
-        let (sample_idx, axis_idx) = if rows_are_samples {
-            (row, col)
-        } else {
-            (col, row)
-        };
-        let value = dtype.decode(element) * scale;
-        if !value.is_finite() {
-            return Err(IngestError::NonFiniteSample {
+        Some(Grid {
+            n_rows,
+            n_cols,
+            rows_are_samples,
+        })
+    }
+
+    /// `grid`, or the error naming the shape.
+    fn checked_grid(&self, file: &str) -> Result<Grid, IngestError> {
+        self.grid().ok_or_else(|| IngestError::NpyUnsupportedShape {
+            file: file.to_string(),
+            byte_offset: self.header_start,
+            shape: self.shape_text(),
+        })
+    }
+
+    /// The element type and grid, after checking that the data is exactly as long as they say.
+    pub(super) fn checked(&self, file: &str) -> Result<(Dtype, Grid), IngestError> {
+        let dtype = self.dtype(file)?;
+        let grid = self.checked_grid(file)?;
+        let expected_bytes = grid
+            .n_rows
+            .checked_mul(grid.n_cols)
+            .and_then(|n| n.checked_mul(dtype.item_bytes()))
+            .ok_or_else(|| IngestError::NpyBadHeader {
                 file: file.to_string(),
-                byte_offset: data_start + flat_idx * item_bytes,
-                value,
+                byte_offset: self.header_start,
+                reason: "the shape is too large for this machine".to_string(),
+            })?;
+        let found_bytes = self.data.len();
+        if found_bytes < expected_bytes {
+            return Err(IngestError::NpyTruncated {
+                file: file.to_string(),
+                byte_offset: self.data_start + found_bytes,
+                expected_bytes,
+                found_bytes,
             });
         }
-        if let Some(slot) = axes
-            .get_mut(axis_idx)
-            .and_then(|axis| axis.get_mut(sample_idx))
-        {
-            *slot = value;
+        if found_bytes > expected_bytes {
+            return Err(IngestError::NpyTrailingBytes {
+                file: file.to_string(),
+                byte_offset: self.data_start + expected_bytes,
+                extra_bytes: found_bytes - expected_bytes,
+            });
         }
+        Ok((dtype, grid))
     }
+
+    /// The samples of each axis times `scale`, all finite.
+    pub(super) fn decode(
+        &self,
+        file: &str,
+        dtype: Dtype,
+        grid: Grid,
+        scale: f64,
+    ) -> Result<Vec<Vec<f64>>, IngestError> {
+        let n_samples = grid.n_samples();
+        let mut axes: Vec<Vec<f64>> = (0..grid.n_axes()).map(|_| vec![0.0; n_samples]).collect();
+        let item_bytes = dtype.item_bytes();
+        // Element (row r, column c) is at flat index r * n_cols + c in C order and
+        // c * n_rows + r in Fortran order (NEP 1). Decode in storage order, then place each
+        // value in its axis.
+        for (flat_idx, element) in self.data.chunks_exact(item_bytes).enumerate() {
+            let (row, col) = if self.fortran_order {
+                (flat_idx % grid.n_rows.max(1), flat_idx / grid.n_rows.max(1))
+            } else {
+                (flat_idx / grid.n_cols, flat_idx % grid.n_cols)
+            };
+            let (sample_idx, axis_idx) = if grid.rows_are_samples {
+                (row, col)
+            } else {
+                (col, row)
+            };
+            let value = dtype.decode(element) * scale;
+            if !value.is_finite() {
+                return Err(IngestError::NonFiniteSample {
+                    file: file.to_string(),
+                    byte_offset: self.data_start + flat_idx * item_bytes,
+                    value,
+                });
+            }
+            if let Some(slot) = axes
+                .get_mut(axis_idx)
+                .and_then(|axis| axis.get_mut(sample_idx))
+            {
+                *slot = value;
+            }
+        }
+        Ok(axes)
+    }
+}
+
+/// The scale and unit of an array's samples: integers through the volts per count (or as
+/// nanometres), floats in the unit of the options.
+pub(super) fn scale_and_unit(
+    file: &str,
+    format: Format,
+    array: &NpyArray<'_>,
+    options: &IngestOptions,
+) -> Result<(f64, PositionUnit), IngestError> {
+    if array.is_integer() {
+        integer_scale(file, &array.descr, options, true)
+    } else {
+        Ok((1.0, required_unit(file, format.name(), options)?))
+    }
+}
+
+/// Reads a `.npy` file (see the module documentation for what is accepted).
+pub(super) fn parse_npy(
+    file: &str,
+    bytes: &[u8],
+    options: &IngestOptions,
+) -> Result<Recording, IngestError> {
+    let array = read_array(file, bytes)?;
+    let (dtype, grid) = array.checked(file)?;
+    let (scale, unit) = scale_and_unit(file, Format::Npy, &array, options)?;
+    let sample_rate_hz = required_rate(file, Format::Npy, options)?;
+    if grid.n_samples() < MIN_SAMPLES {
+        return Err(IngestError::TooFewSamples {
+            file: file.to_string(),
+            found: grid.n_samples(),
+        });
+    }
+    let axes = array.decode(file, dtype, grid, scale)?;
     finish_unlabelled(file, sample_rate_hz, unit, axes)
 }
 

@@ -7,18 +7,22 @@
 //! - An optional UTF-8 byte order mark; lines end in LF or CRLF; `#` lines and blank lines
 //!   before the header (or before the first row of a headerless file) are skipped; blank lines
 //!   after the last row are allowed, blank lines between rows are an error.
-//! - CSV separates cells with `,`, TSV with a tab; spaces (and, for CSV, tabs) around cells are
-//!   ignored; header labels may be wrapped in double quotes.
+//! - CSV separates cells with `,` (or `;`, with a decimal point or a decimal comma), TSV with a
+//!   tab; spaces (and, for CSV, tabs) around cells are ignored; header labels may be wrapped in
+//!   double quotes. The separator and the decimal mark are decided before the first row is read
+//!   (`layout::decide`).
 //! - The header names an optional time column (`t` or `time`, any ASCII case, in seconds, or
 //!   with unit `ms` or `us`: `time_s`, `t_ms`, `time (us)`) and one to three position columns
 //!   whose names become the axis names. A position unit is a suffix `_nm`, `_V`, `_v` or a
-//!   bracketed unit `x (nm)`, `x [V]`; all position columns share one unit.
+//!   bracketed unit `x (nm)`, `x [V]`; micrometres (`_um`, `(µm)`) are converted to nm and
+//!   millivolts (`_mV`, `[mV]`) to V; all position columns share one unit after conversion.
 //! - Headerless columns hold one to three position columns, named `x`, `y`, `z`; the first data
 //!   row decides the separator: a comma if it has one, else runs of spaces and tabs.
 //!
 //! CSV here is the unquoted subset of RFC 4180 (Common Format and MIME Type for CSV Files):
 //! data cells are never quoted, and LF line ends are accepted as well as CRLF.
 
+use super::layout::Layout;
 use super::stream::LineChunks;
 use super::{
     Format, IngestError, IngestOptions, MIN_SAMPLES, SNIFF_BYTES, check_rate, finish,
@@ -27,7 +31,7 @@ use super::{
 use crate::recording::{AxisTrace, PositionUnit, Recording};
 
 /// The UTF-8 byte order mark some editors put at the start of text files.
-const BOM: &[u8] = b"\xEF\xBB\xBF";
+pub(super) const BOM: &[u8] = b"\xEF\xBB\xBF";
 
 /// Pieces of text at least this long are scanned on two threads (`Table::scan_split`), bytes:
 /// below it a thread costs more than it saves (about 2.5 ms of parsing per MiB here against
@@ -58,11 +62,14 @@ const MAX_QUOTED_CHARS: usize = 40;
 
 /// The cell separator of a table.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-enum Sep {
+pub(super) enum Sep {
     /// A single comma; spaces and tabs around cells are ignored.
     Comma,
     /// A single tab; spaces around cells are ignored.
     Tab,
+    /// A single semicolon, as spreadsheet programs write CSV where the comma is the decimal
+    /// mark; spaces and tabs around cells are ignored.
+    Semicolon,
     /// One or more spaces or tabs.
     Whitespace,
 }
@@ -73,13 +80,17 @@ impl Sep {
         match self {
             Sep::Comma => Some(b','),
             Sep::Tab => Some(b'\t'),
+            Sep::Semicolon => Some(b';'),
             Sep::Whitespace => None,
         }
     }
 
-    /// The separator of a line: comma if present, else tab if present, else whitespace.
+    /// The separator of a line: semicolon if present (its cells may hold decimal commas), else
+    /// comma if present, else tab if present, else whitespace.
     fn of_line(line: &[u8]) -> Sep {
-        if line.contains(&b',') {
+        if line.contains(&b';') {
+            Sep::Semicolon
+        } else if line.contains(&b',') {
             Sep::Comma
         } else if line.contains(&b'\t') {
             Sep::Tab
@@ -117,7 +128,7 @@ impl Sniffed {
     /// by spaces is left to the `Columns` parser, which reports its first non-numeric cell).
     pub(super) fn format(self) -> Format {
         match (self.numeric_first_row, self.sep) {
-            (false, Sep::Comma) => Format::Csv,
+            (false, Sep::Comma | Sep::Semicolon) => Format::Csv,
             (false, Sep::Tab) => Format::Tsv,
             _ => Format::Columns,
         }
@@ -149,7 +160,11 @@ pub(super) fn sniff(bytes: &[u8]) -> Option<Sniffed> {
         .map(str::trim)
         .find(|line| !line.is_empty() && !line.starts_with('#'))?;
     let sep = Sep::of_line(row.as_bytes());
-    let numeric_first_row = split_cells(row, sep).all(|cell| is_number(cell.trim()));
+    // A semicolon-separated row may hold decimal commas; either mark makes it numeric.
+    let decimal_comma = sep == Sep::Semicolon;
+    let numeric_first_row = split_cells(row, sep).all(|cell| {
+        is_number(cell.trim(), false) || (decimal_comma && is_number(cell.trim(), true))
+    });
     Some(Sniffed {
         numeric_first_row,
         sep,
@@ -157,17 +172,48 @@ pub(super) fn sniff(bytes: &[u8]) -> Option<Sniffed> {
 }
 
 /// Splits a line into cells by the separator (cells not trimmed).
-fn split_cells(line: &str, sep: Sep) -> Box<dyn Iterator<Item = &str> + '_> {
+pub(super) fn split_cells(line: &str, sep: Sep) -> Box<dyn Iterator<Item = &str> + '_> {
     match sep {
         Sep::Comma => Box::new(line.split(',')),
         Sep::Tab => Box::new(line.split('\t')),
+        Sep::Semicolon => Box::new(line.split(';')),
         Sep::Whitespace => Box::new(line.split_ascii_whitespace()),
     }
 }
 
-/// Whether the whole text is one number as `fast_float2` reads it.
-fn is_number(cell: &str) -> bool {
-    fast_float2::parse::<f64, _>(cell).is_ok()
+/// Whether the whole text is one number as the row scanner reads it (`parse_cell`), with a
+/// decimal point or, if `decimal_comma`, a decimal comma.
+fn is_number(cell: &str, decimal_comma: bool) -> bool {
+    let bytes = cell.as_bytes();
+    !bytes.is_empty() && parse_cell(bytes, decimal_comma).is_some_and(|(_, n)| n == bytes.len())
+}
+
+/// The longest cell read with a decimal comma, bytes: longer cells are reported as not numeric
+/// (a double needs at most 17 significant digits; an exponent and padding digits fit well
+/// within this).
+const MAX_DECIMAL_COMMA_CELL: usize = 64;
+
+/// Reads the number at the start of `bytes`, returning it with the bytes it took.
+///
+/// With `decimal_comma` the comma is the decimal mark and a point is not a number character
+/// (so `1.234,5`, with a thousands point, is refused rather than misread): the cell is copied
+/// with the marks swapped into a small buffer and read there, byte for byte, so the count of
+/// bytes taken is the same in the original.
+#[inline]
+fn parse_cell(bytes: &[u8], decimal_comma: bool) -> Option<(f64, usize)> {
+    if !decimal_comma {
+        return fast_float2::parse_partial::<f64, _>(bytes).ok();
+    }
+    let mut buf = [0u8; MAX_DECIMAL_COMMA_CELL];
+    let n = bytes.len().min(MAX_DECIMAL_COMMA_CELL);
+    for (dst, &b) in buf.iter_mut().zip(bytes.iter().take(n)) {
+        *dst = match b {
+            b',' => b'.',
+            b'.' => b'#',
+            other => other,
+        };
+    }
+    fast_float2::parse_partial::<f64, _>(buf.get(..n).unwrap_or_default()).ok()
 }
 
 /// Reads a CSV, TSV or headerless-columns file from a stream (see the module documentation for
@@ -181,6 +227,7 @@ pub(super) fn read_text(
     file: &str,
     mut chunks: LineChunks<'_>,
     format: Format,
+    layout: Layout,
     options: &IngestOptions,
     size_hint: Option<usize>,
     split: Split,
@@ -204,8 +251,14 @@ pub(super) fn read_text(
                 cursor.skip_preamble();
                 if !cursor.at_end() {
                     let remaining = size_hint.map(|total| total.saturating_sub(base + cursor.pos));
-                    let started =
-                        table.insert(Table::start(file, &mut cursor, format, options, remaining)?);
+                    let started = table.insert(Table::start(
+                        file,
+                        &mut cursor,
+                        format,
+                        layout,
+                        options,
+                        remaining,
+                    )?);
                     started.scan_split(file, &mut cursor, split)?;
                 }
             }
@@ -255,10 +308,13 @@ fn check_utf8(file: &str, base: usize, first_line: usize, piece: &[u8]) -> Resul
     }
 }
 
+/// Column index, axis name and conversion of each position column, in file order.
+type PositionColumns = Vec<(usize, String, Scale)>;
+
 /// What the first row of a table fixed, and the rows read so far.
 struct Table {
-    /// Cell separator.
-    sep: Sep,
+    /// Cell separator and decimal mark.
+    layout: Layout,
     /// What fixed `n_cols`, for messages: "header" or "first row".
     reference: &'static str,
     /// One vector per column; the time column's is emptied after each piece.
@@ -266,7 +322,7 @@ struct Table {
     /// Column index of the time column and the checks on its stamps.
     time: Option<(usize, TimeCheck)>,
     /// Headed tables: the header's line and the position columns with their names.
-    header: Option<(usize, Vec<(usize, String)>)>,
+    header: Option<(usize, PositionColumns)>,
     /// Unit of the positions.
     unit: PositionUnit,
     /// Sample rate known before the rows (headerless tables).
@@ -284,18 +340,14 @@ impl Table {
         file: &str,
         cursor: &mut Cursor<'_>,
         format: Format,
+        layout: Layout,
         options: &IngestOptions,
         remaining: Option<usize>,
     ) -> Result<Table, IngestError> {
         let mut table = match format {
             Format::Columns => {
                 let first_row = cursor.current_line();
-                let sep = if first_row.contains(&b',') {
-                    Sep::Comma
-                } else {
-                    Sep::Whitespace
-                };
-                let n_cols = count_cells(first_row, sep);
+                let n_cols = count_cells(first_row, layout.sep);
                 if n_cols > 3 {
                     return Err(IngestError::TooManyColumns {
                         file: file.to_string(),
@@ -305,24 +357,24 @@ impl Table {
                 }
                 let unit = required_unit(file, Format::Columns.name(), options)?;
                 let rate = required_rate(file, Format::Columns, options)?;
-                Table::new(n_cols, sep, "first row", unit, Some(rate))
+                Table::new(n_cols, layout, "first row", unit, Some(rate))
             }
             _ => {
-                let (sep, format) = match format {
-                    Format::Tsv => (Sep::Tab, Format::Tsv),
-                    _ => (Sep::Comma, Format::Csv),
+                let format = match format {
+                    Format::Tsv => Format::Tsv,
+                    _ => Format::Csv,
                 };
                 let header_line = cursor.line;
                 let header_bytes = cursor.take_line();
                 // The piece was checked to be UTF-8 and lines are cut at ASCII bytes.
                 let header_text = std::str::from_utf8(header_bytes).unwrap_or_default();
-                let header = parse_header(file, header_line, header_text, sep, format, options)?;
+                let header = parse_header(file, header_line, header_text, layout, format, options)?;
                 let given_rate_hz = match header.time {
                     Some(_) => None,
                     None => Some(required_rate(file, format, options)?),
                 };
                 let mut table =
-                    Table::new(header.n_cols, sep, "header", header.unit, given_rate_hz);
+                    Table::new(header.n_cols, layout, "header", header.unit, given_rate_hz);
                 table.time = header
                     .time
                     .map(|(col_idx, seconds_per_unit)| (col_idx, TimeCheck::new(seconds_per_unit)));
@@ -348,13 +400,13 @@ impl Table {
     /// An empty table of `n_cols` columns.
     fn new(
         n_cols: usize,
-        sep: Sep,
+        layout: Layout,
         reference: &'static str,
         unit: PositionUnit,
         given_rate_hz: Option<f64>,
     ) -> Table {
         Table {
-            sep,
+            layout,
             reference,
             columns: (0..n_cols).map(|_| Vec::new()).collect(),
             time: None,
@@ -394,7 +446,7 @@ impl Table {
             line: cursor.line,
         };
         let tail_line = cursor.line + count_line_feeds(head.get(cursor.pos..).unwrap_or_default());
-        let (sep, reference, n_cols) = (self.sep, self.reference, self.columns.len());
+        let (layout, reference, n_cols) = (self.layout, self.reference, self.columns.len());
         let scan_tail = move || {
             let mut tail_cursor = Cursor {
                 bytes: tail,
@@ -404,7 +456,7 @@ impl Table {
             let mut columns: Vec<Vec<f64>> = (0..n_cols)
                 .map(|_| Vec::with_capacity(tail.len() / 16))
                 .collect();
-            let outcome = scan_rows(file, &mut tail_cursor, &mut columns, sep, reference);
+            let outcome = scan_rows(file, &mut tail_cursor, &mut columns, layout, reference);
             (outcome, columns, tail_cursor.line)
         };
         // On one core the halves run one after the other, through the same joining code.
@@ -472,7 +524,8 @@ impl Table {
         }
         let first_row_line = cursor.line;
         let rows_before = self.columns.first().map_or(0, Vec::len);
-        self.trailing_blank = scan_rows(file, cursor, &mut self.columns, self.sep, self.reference)?;
+        self.trailing_blank =
+            scan_rows(file, cursor, &mut self.columns, self.layout, self.reference)?;
         let n_new = self.columns.first().map_or(0, Vec::len) - rows_before;
         if let Some((col_idx, check)) = self.time.as_mut() {
             if let Some(times) = self.columns.get_mut(*col_idx) {
@@ -509,18 +562,48 @@ impl Table {
             // not a sentinel, should that ever change.
             (None, None) => required_rate(file, Format::Csv, options)?,
         };
-        let axes = positions
-            .into_iter()
-            .map(|(col_idx, name)| AxisTrace {
-                name,
-                samples: self
-                    .columns
-                    .get_mut(col_idx)
-                    .map(std::mem::take)
-                    .unwrap_or_default(),
-            })
-            .collect();
+        let mut axes = Vec::with_capacity(positions.len());
+        for (col_idx, name, scale) in positions {
+            let mut samples = self
+                .columns
+                .get_mut(col_idx)
+                .map(std::mem::take)
+                .unwrap_or_default();
+            if let Some(sample_idx) = scale.apply(&mut samples) {
+                // Rows follow the header line by line (no comments or blank lines between).
+                return Err(IngestError::NonFiniteCell {
+                    file: file.to_string(),
+                    line: header_line + 1 + sample_idx,
+                    column: col_idx + 1,
+                    cell: "a value that overflows once converted to nm".to_string(),
+                });
+            }
+            axes.push(AxisTrace { name, samples });
+        }
         finish(file, sample_rate_hz, self.unit, axes)
+    }
+}
+
+/// The conversion of a position column to the unit trapwise works in (nm or V).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Scale {
+    /// Already nm or V.
+    One,
+    /// Micrometres to nanometres.
+    Times1000,
+    /// Millivolts to volts (divided, so that a value of whole millivolts is correctly rounded).
+    Per1000,
+}
+
+impl Scale {
+    /// Converts the samples in place; returns the index of the first that is no longer finite.
+    fn apply(self, samples: &mut [f64]) -> Option<usize> {
+        match self {
+            Scale::One => return None,
+            Scale::Times1000 => samples.iter_mut().for_each(|v| *v *= 1000.0),
+            Scale::Per1000 => samples.iter_mut().for_each(|v| *v /= 1000.0),
+        }
+        samples.iter().position(|v| !v.is_finite())
     }
 }
 
@@ -658,7 +741,7 @@ struct Header {
     /// Column index of the time column and the seconds per unit of its values.
     time: Option<(usize, f64)>,
     /// Column index and axis name of each position column, in file order.
-    positions: Vec<(usize, String)>,
+    positions: PositionColumns,
     /// Unit shared by all position columns.
     unit: PositionUnit,
 }
@@ -667,8 +750,8 @@ struct Header {
 enum Role<'a> {
     /// Time column with this many seconds per unit.
     Time(f64),
-    /// Position column with this name and, if written, this unit.
-    Position(&'a str, Option<PositionUnit>),
+    /// Position column with this name and, if written, this unit and the conversion to it.
+    Position(&'a str, Option<PositionUnit>, Scale),
 }
 
 /// Interprets the header row (see the module documentation).
@@ -676,11 +759,12 @@ fn parse_header(
     file: &str,
     line: usize,
     text: &str,
-    sep: Sep,
+    layout: Layout,
     format: Format,
     options: &IngestOptions,
 ) -> Result<Header, IngestError> {
-    if split_cells(text, sep).all(|cell| is_number(cell.trim())) {
+    let Layout { sep, decimal_comma } = layout;
+    if split_cells(text, sep).all(|cell| is_number(cell.trim(), decimal_comma)) {
         return Err(IngestError::NumericHeader {
             file: file.to_string(),
             line,
@@ -689,7 +773,7 @@ fn parse_header(
     }
     let mut n_cols = 0;
     let mut time = None;
-    let mut positions: Vec<(usize, String)> = Vec::with_capacity(3);
+    let mut positions: PositionColumns = Vec::with_capacity(3);
     let mut unit: Option<PositionUnit> = None;
     for (col_idx, raw) in split_cells(text, sep).enumerate() {
         n_cols += 1;
@@ -707,9 +791,9 @@ fn parse_header(
                 }
                 time = Some((col_idx, seconds_per_unit));
             }
-            Role::Position(name, header_unit) => {
+            Role::Position(name, header_unit, scale) => {
                 check_axis_name(file, line, column, name)?;
-                if positions.iter().any(|(_, other)| other == name) {
+                if positions.iter().any(|(_, other, _)| other == name) {
                     return Err(IngestError::DuplicateColumn {
                         file: file.to_string(),
                         line,
@@ -742,7 +826,7 @@ fn parse_header(
                     }
                     _ => unit = Some(column_unit),
                 }
-                positions.push((col_idx, name.to_string()));
+                positions.push((col_idx, name.to_string(), scale));
             }
         }
     }
@@ -790,6 +874,51 @@ fn resolve_unit(
     }
 }
 
+/// The first line that is not blank or a `#` comment, after a byte order mark, with its
+/// 1-based line number (for `inspect`).
+pub(super) fn first_line(prefix: &[u8]) -> Option<(usize, &str)> {
+    let prefix = prefix.strip_prefix(BOM).unwrap_or(prefix);
+    let text = match std::str::from_utf8(prefix) {
+        Ok(text) => text,
+        Err(e) => std::str::from_utf8(prefix.get(..e.valid_up_to())?).ok()?,
+    };
+    text.lines()
+        .enumerate()
+        .find(|(_, l)| !(l.trim().is_empty() || l.trim_start().starts_with('#')))
+        .map(|(idx, l)| (idx + 1, l))
+}
+
+/// What the reader makes of each header cell (for `inspect`): the time column, a position
+/// column with its unit and conversion, or the refusal.
+pub(super) fn header_roles(
+    file: &str,
+    line: usize,
+    header: &str,
+    sep: Sep,
+) -> Vec<super::inspect::Column> {
+    split_cells(header, sep)
+        .enumerate()
+        .map(|(col_idx, raw)| {
+            let label = unquote(raw.trim());
+            let role = match classify_label(file, line, col_idx + 1, label) {
+                Ok(Role::Time(_)) => "time (s)".to_string(),
+                Ok(Role::Position(_, None, _)) => "position (no unit)".to_string(),
+                Ok(Role::Position(_, Some(unit), Scale::One)) => {
+                    format!("position ({})", unit.suffix())
+                }
+                Ok(Role::Position(_, Some(unit), _)) => {
+                    format!("position (converted to {})", unit.suffix())
+                }
+                Err(e) => format!("refused: {e}"),
+            };
+            super::inspect::Column {
+                label: label.to_string(),
+                role,
+            }
+        })
+        .collect()
+}
+
 /// Removes one pair of surrounding double quotes.
 fn unquote(label: &str) -> &str {
     label
@@ -835,8 +964,10 @@ fn classify_label<'a>(
     };
     let position_unit = match unit_text {
         None => None,
-        Some("nm") => Some(PositionUnit::Nanometre),
-        Some("V" | "v") => Some(PositionUnit::Volt),
+        Some("nm") => Some((PositionUnit::Nanometre, Scale::One)),
+        Some("um" | "µm" | "μm") => Some((PositionUnit::Nanometre, Scale::Times1000)),
+        Some("V" | "v") => Some((PositionUnit::Volt, Scale::One)),
+        Some("mV" | "mv") => Some((PositionUnit::Volt, Scale::Per1000)),
         Some(_) => None,
     };
     let seconds_per_unit = match unit_text {
@@ -848,15 +979,15 @@ fn classify_label<'a>(
     let is_time_name = name.eq_ignore_ascii_case("t") || name.eq_ignore_ascii_case("time");
     match (is_time_name, seconds_per_unit, position_unit, unit_text) {
         (true, Some(seconds_per_unit), _, _) => Ok(Role::Time(seconds_per_unit)),
-        (_, _, Some(unit), _) => Ok(Role::Position(name, Some(unit))),
-        (_, _, None, None) => Ok(Role::Position(name, None)),
+        (_, _, Some((unit, scale)), _) => Ok(Role::Position(name, Some(unit), scale)),
+        (_, _, None, None) => Ok(Role::Position(name, None, Scale::One)),
         (_, _, None, Some(unit)) => Err(unsupported(unit)),
     }
 }
 
 /// Splits a label into name and unit text: `x (nm)` and `x [V]` always carry a unit; `x_nm`
-/// carries one only if the suffix is a unit we know (nm, V, v, s, ms, us), so that labels such
-/// as `bead_1` keep their underscore.
+/// carries one only if the suffix is a unit we know (nm, um, V, v, mV, s, ms, us), so that
+/// labels such as `bead_1` keep their underscore.
 fn split_label(label: &str) -> (&str, Option<&str>) {
     for (open, close) in [('(', ')'), ('[', ']')] {
         let bracketed = label
@@ -867,7 +998,12 @@ fn split_label(label: &str) -> (&str, Option<&str>) {
         }
     }
     match label.rsplit_once('_') {
-        Some((name, suffix)) if matches!(suffix, "nm" | "V" | "v" | "s" | "ms" | "us" | "µs") => {
+        Some((name, suffix))
+            if matches!(
+                suffix,
+                "nm" | "um" | "µm" | "V" | "v" | "mV" | "s" | "ms" | "us" | "µs"
+            ) =>
+        {
             (name, Some(suffix))
         }
         _ => (label, None),
@@ -988,9 +1124,10 @@ fn scan_rows(
     file: &str,
     cursor: &mut Cursor<'_>,
     columns: &mut [Vec<f64>],
-    sep: Sep,
+    layout: Layout,
     reference: &'static str,
 ) -> Result<Option<usize>, IngestError> {
+    let Layout { sep, decimal_comma } = layout;
     let n_cols = columns.len();
     if n_cols == 0 {
         // Callers never ask for zero columns; returning keeps the row loop from spinning.
@@ -1039,7 +1176,7 @@ fn scan_rows(
             pos = skip_padding(bytes, pos, tabs);
             let cell_start = pos;
             let rest = bytes.get(pos..).unwrap_or_default();
-            let Ok((value, n_read)) = fast_float2::parse_partial::<f64, _>(rest) else {
+            let Some((value, n_read)) = parse_cell(rest, decimal_comma) else {
                 return Err(non_numeric(line, col_idx + 1, cell_start));
             };
             pos += n_read;

@@ -65,7 +65,25 @@ pub fn encode(
         .map_err(|fault| value_error(recording, Format::RawF64, fault)),
         Format::RawI16 => encode_i16(recording, volts_per_count),
         Format::Npy => Ok(encode_npy(recording)),
+        Format::Npz => encode_npz(recording),
     }
+}
+
+/// An `.npz` archive of one stored member, `recording.npy`, holding what `encode_npy` writes
+/// (the layout of `numpy.savez` with one array; the reader chooses that member by itself).
+fn encode_npz(recording: &Recording) -> Result<Vec<u8>, IngestError> {
+    let fault = |e: zip::result::ZipError| IngestError::ZipCorrupt {
+        file: "(archive being written)".to_string(),
+        reason: e.to_string(),
+    };
+    let mut writer = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
+    let stored = zip::write::SimpleFileOptions::default()
+        .compression_method(zip::CompressionMethod::Stored)
+        .large_file(true);
+    writer.start_file("recording.npy", stored).map_err(fault)?;
+    std::io::Write::write_all(&mut writer, &encode_npy(recording))
+        .map_err(|e| fault(zip::result::ZipError::Io(e)))?;
+    Ok(writer.finish().map_err(fault)?.into_inner())
 }
 
 /// Appends a number in a shortest form that parses back to the same f64: Rust's `Display`

@@ -5,10 +5,12 @@
 //! SI to the trade's units (pN/nm, nm/V, pN s/nm, um, mPa s). The CLI's `--json` output, the
 //! service's stored result and its responses all use `CalibrationReport` unchanged.
 
+mod inspection;
 mod summary;
 #[cfg(test)]
 mod tests;
 
+pub use inspection::{inspection_json, inspection_text};
 pub use summary::summary_table;
 
 use crate::calibration::{

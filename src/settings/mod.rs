@@ -12,7 +12,7 @@ pub mod spec;
 use crate::calibration::{AnalysisOptions, Drive, RunConditions};
 use crate::drag;
 use crate::equipartition::Detrend;
-use crate::ingest::{DEFAULT_TIME_TOLERANCE, Format, IngestOptions};
+use crate::ingest::{DEFAULT_TIME_TOLERANCE, Delimiter, Format, IngestOptions};
 use crate::recording::PositionUnit;
 use crate::spectrum::{FilterSetting, NoiseFloorMode};
 use std::collections::BTreeMap;
@@ -257,7 +257,23 @@ impl Settings {
             time_tolerance: self
                 .number("time_tolerance")
                 .unwrap_or(DEFAULT_TIME_TOLERANCE),
+            delimiter: self.choice("delimiter", Delimiter::parse_name)?,
+            decimal_comma: self.boolean("decimal_comma"),
+            datasets: self
+                .names("dataset")
+                .map(<[String]>::to_vec)
+                .unwrap_or_default(),
+            ..IngestOptions::default()
         };
+        if ingest.delimiter == Some(Delimiter::Comma) && ingest.decimal_comma == Some(true) {
+            return Err(bad(
+                "decimal_comma",
+                "true",
+                "the comma cannot be both the delimiter and the decimal mark: give delimiter ; \
+                 or leave decimal_comma out"
+                    .to_string(),
+            ));
+        }
         let diameter_um = self.required_number("bead_diameter_um")?;
         let temperature_c = self.required_number("temperature_c")?;
         let mut conditions = RunConditions::new(diameter_um * 1e-6, temperature_c);
@@ -319,6 +335,28 @@ impl Settings {
 }
 
 impl Settings {
+    /// The options for reading a file given by the reading settings alone (`format`,
+    /// `delimiter`, `decimal_comma`, `dataset`, and the sample rate, unit and volts per count
+    /// when given), without the run conditions `resolve` requires: what `inspect` reads with.
+    pub fn reading_options(&self) -> IngestOptions {
+        IngestOptions {
+            format: self.choice("format", Format::parse_name).ok().flatten(),
+            sample_rate_hz: self.number("sample_rate_hz"),
+            unit: self.choice("units", parse_unit).ok().flatten(),
+            volts_per_count: self.number("volts_per_count"),
+            delimiter: self
+                .choice("delimiter", Delimiter::parse_name)
+                .ok()
+                .flatten(),
+            decimal_comma: self.boolean("decimal_comma"),
+            datasets: self
+                .names("dataset")
+                .map(<[String]>::to_vec)
+                .unwrap_or_default(),
+            ..IngestOptions::default()
+        }
+    }
+
     /// The stage drive: frequency and amplitude together, or neither; the other drive
     /// settings only with them (a standard error of zero, the stated default, is always
     /// accepted).

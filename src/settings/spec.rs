@@ -287,6 +287,12 @@ pub fn number_text(x: f64) -> String {
 }
 
 impl SettingSpec {
+    /// Whether the setting may be given more than once (a list of names, one per flag or
+    /// field, joined with commas).
+    pub fn repeatable(&self) -> bool {
+        self.kind == Kind::Names
+    }
+
     /// Whether the setting must be given.
     pub fn required(&self) -> bool {
         matches!(self.absent, Absent::Required { .. })
@@ -341,9 +347,15 @@ pub const UNIT_CHOICES: Choices = Choices {
 /// File formats, by the names of `ingest::Format::name` and its short aliases.
 pub const FORMAT_CHOICES: Choices = Choices {
     names: &[
-        "csv", "tsv", "columns", "raw-f32", "raw-f64", "raw-i16", "npy",
+        "csv", "tsv", "columns", "raw-f32", "raw-f64", "raw-i16", "npy", "npz",
     ],
     aliases: &[("f32", "raw-f32"), ("f64", "raw-f64"), ("i16", "raw-i16")],
+};
+
+/// Cell separators of text tables, by the names of `ingest::Delimiter::parse_name`.
+pub const DELIMITER_CHOICES: Choices = Choices {
+    names: &["comma", "semicolon", "tab", "space"],
+    aliases: &[(",", "comma"), (";", "semicolon"), ("whitespace", "space")],
 };
 
 /// What equipartition removes before taking the variance.
@@ -591,6 +603,48 @@ pub const SPECS: &[SettingSpec] = &[
         flag: Flag::Value {
             long: "format",
             value_name: "FORMAT",
+        },
+    },
+    SettingSpec {
+        key: "delimiter",
+        label: "Cell delimiter",
+        kind: Kind::Choice(&DELIMITER_CHOICES),
+        unit: "",
+        help: "Separator of the cells of a text table (comma, semicolon, tab or space).",
+        absent: Absent::Means("told from the header and the first rows"),
+        example: ";",
+        flag: Flag::Value {
+            long: "delimiter",
+            value_name: "DELIMITER",
+        },
+    },
+    SettingSpec {
+        key: "decimal_comma",
+        label: "Decimal comma",
+        kind: Kind::Boolean,
+        unit: "",
+        help: "Whether the numbers of a text table use the comma as the decimal mark (as \
+               spreadsheets in many European locales write them).",
+        absent: Absent::Means("told from the first rows"),
+        example: "true",
+        flag: Flag::Value {
+            long: "decimal-comma",
+            value_name: "BOOL",
+        },
+    },
+    SettingSpec {
+        key: "dataset",
+        label: "Datasets",
+        kind: Kind::Names,
+        unit: "",
+        help: "The members of a .npz archive to read, one per axis in axis order (repeat the \
+               flag or the field, or separate the names with commas); one two-dimensional \
+               member may hold all axes.",
+        absent: Absent::Means("the one numeric member of at least 1024 samples"),
+        example: "x,y",
+        flag: Flag::Value {
+            long: "dataset",
+            value_name: "NAME",
         },
     },
     SettingSpec {

@@ -468,7 +468,7 @@ fn blank_values_leave_a_setting_unset_and_unknown_keys_are_named() {
     assert_eq!(
         err.to_string(),
         "setting `format` = `xlsx` is not valid: expected csv, tsv, columns, raw-f32, \
-         raw-f64, raw-i16 or npy"
+         raw-f64, raw-i16, npy or npz"
     );
 }
 

@@ -41,6 +41,10 @@ mod connections;
 // document describing what the service answers.
 mod api_contract;
 
+// Uploads of issue 15's formats end to end (a .npz with repeated dataset fields, a semicolon
+// CSV with decimal commas, gzip), their damaged cases (400) and a compression bomb (413).
+mod formats;
+
 // The page in headless Chromium over WebDriver against the real service: uploads by drop and
 // by file chooser, numbers equal to the API's, plots drawn, refused uploads' messages, the
 // laser-safety caution in view, history and overview; screenshots in test-output/screenshots.
