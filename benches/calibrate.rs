@@ -127,10 +127,7 @@ fn bench_default_model(c: &mut Criterion) {
         f_m_hz: h.f_m_hz,
     });
     let mut rng = trapwise::simulate::generator(1);
-    let drag_samples = axis
-        .plan(FS, n)
-        .expect("valid axis")
-        .record(&mut rng);
+    let drag_samples = axis.plan(FS, n).expect("valid axis").record(&mut rng);
     let drag_recording = Recording {
         axes: vec![AxisTrace {
             name: "x".into(),
