@@ -96,6 +96,22 @@ fn a_strong_stage_oscillation_off_the_fourier_grid_is_subtracted_before_the_spec
     assert!(mean_z.abs() < 0.3, "mean z of the consensus {mean_z}");
 }
 
+/// A photodiode record in volts of the plain aliased Lorentzian of the reference trap
+/// (Berg-Sorensen & Flyvbjerg, Rev. Sci. Instrum. 75, 594 (2004)), synthesised exactly, with
+/// sensitivity `beta_nm_per_v`.
+fn clean_volt_record(
+    rng: &mut rand_xoshiro::Xoshiro256PlusPlus,
+    n: usize,
+    fs: f64,
+    beta_nm_per_v: f64,
+) -> Recording {
+    let (fc, d) = truth();
+    let x = gaussian_record(|f| aliased_lorentzian_one_sided(f, fc, d, fs), fs, n, rng);
+    let mut rec = one_axis(x.iter().map(|v| v / beta_nm_per_v).collect(), fs);
+    rec.unit = PositionUnit::Volt;
+    rec
+}
+
 /// A photodiode record in volts of the aliased filtered Lorentzian (filter of Berg-Sorensen,
 /// Oddershede, Florin & Flyvbjerg, J. Appl. Phys. 93, 3167 (2003), recalled from memory,
 /// unverified), synthesised exactly, with sensitivity `beta_nm_per_v`.
@@ -309,7 +325,6 @@ fn a_photodiode_filter_left_out_is_named_by_a_finding_and_clean_records_do_not_r
         f3db_hz: 8_000.0,
         alpha: 0.3,
     };
-    let (fc, d) = truth();
     let fs = 100_000.0;
     let beta = 300.0;
     let options = AnalysisOptions {
@@ -333,15 +348,7 @@ fn a_photodiode_filter_left_out_is_named_by_a_finding_and_clean_records_do_not_r
     let mut rng = generator(42);
     let mut false_alarms = 0;
     for _ in 0..40 {
-        let x = gaussian_record(
-            |f| aliased_lorentzian_one_sided(f, fc, d, fs),
-            fs,
-            1 << 17,
-            &mut rng,
-        );
-        let mut rec = one_axis(x.iter().map(|v| v / beta).collect(), fs);
-        rec.unit = PositionUnit::Volt;
-        false_alarms += usize::from(fires(&rec));
+        false_alarms += usize::from(fires(&clean_volt_record(&mut rng, 1 << 17, fs, beta)));
     }
     eprintln!("filter-unmodelled: {hits} of 20 filtered records, {false_alarms} of 40 clean ones");
     assert!(hits >= 19, "{hits} of 20 filtered records");
@@ -400,17 +407,8 @@ fn the_filter_screen_lets_through_every_record_whose_refit_would_name_a_filter()
     }
     let mut rng = generator(44);
     let mut passed_clean = 0;
-    let (fc, d) = truth();
     for _ in 0..40 {
-        let x = gaussian_record(
-            |f| aliased_lorentzian_one_sided(f, fc, d, fs),
-            fs,
-            1 << 16,
-            &mut rng,
-        );
-        let mut rec = one_axis(x.iter().map(|v| v / beta).collect(), fs);
-        rec.unit = PositionUnit::Volt;
-        passed_clean += usize::from(stage_of(&rec).0);
+        passed_clean += usize::from(stage_of(&clean_volt_record(&mut rng, 1 << 16, fs, beta)).0);
     }
     eprintln!(
         "filter screen: {flagged} flagged and {unflagged} unflagged weak-filter records; {passed_clean} of 40 clean records passed the screen"

@@ -178,7 +178,7 @@ fn inspect_shows_format_layout_datasets_and_missing_settings() {
         &["one_column_comma.csv", "--decimal-comma"],
         &["not_an_archive.npz"],
     ];
-    let mut transcript = String::new();
+    let mut printed = String::new();
     for run in runs {
         let (file, flags) = run.split_first().expect("a file");
         let output = binary()
@@ -187,7 +187,7 @@ fn inspect_shows_format_layout_datasets_and_missing_settings() {
             .args(flags)
             .output()
             .expect("run trapwise");
-        transcript.push_str(&format!(
+        printed.push_str(&format!(
             "$ trapwise inspect {}\nexit {}\n{}{}\n",
             run.join(" "),
             output.status.code().unwrap_or(-1),
@@ -195,7 +195,7 @@ fn inspect_shows_format_layout_datasets_and_missing_settings() {
             String::from_utf8_lossy(&output.stderr),
         ));
     }
-    check_snapshot("inspect.txt", &transcript);
+    check_snapshot("inspect.txt", &printed);
 }
 
 async fn inspect_endpoint_answers_what_the_file_holds_and_stores_nothing(backend: Backend) {
