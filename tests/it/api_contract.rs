@@ -4,7 +4,7 @@
 //! names that break the naming rules, are 400 with the field at fault; details are capped.
 
 use crate::on_both_backends;
-use crate::support::{Backend, TestDb, TestServer, options};
+use crate::support::{Backend, TestDb, TestServer, options, status_type_body};
 use reqwest::Method;
 use serde_json::Value;
 
@@ -36,19 +36,7 @@ async fn send(server: &TestServer, c: &Call) -> (u16, String, Vec<u8>) {
     for (name, value) in &c.headers {
         request = request.header(*name, value.as_str());
     }
-    let response = request.send().await.expect("request");
-    let status = response.status().as_u16();
-    let content_type = response
-        .headers()
-        .get("content-type")
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("")
-        .to_string();
-    (
-        status,
-        content_type,
-        response.bytes().await.expect("body").to_vec(),
-    )
+    status_type_body(request.send().await.expect("request")).await
 }
 
 /// Checks that an answer is a problem document of `status` with the members RFC 9457 section

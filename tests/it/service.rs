@@ -6,7 +6,7 @@
 use crate::on_both_backends;
 use crate::support::{
     Backend, DemoFile, TestDb, TestServer, binary, check_snapshot, cli_result, demo_csv,
-    demo_files, get, get_json, options, upload, with_query,
+    demo_files, get, get_json, options, status_type_body, upload, with_query,
 };
 use serde_json::Value;
 use trapwise::http::ServiceOptions;
@@ -739,19 +739,7 @@ async fn send_case(
     if let Some(t) = token {
         request = request.bearer_auth(t);
     }
-    let response = request.send().await.expect("request");
-    let status = response.status().as_u16();
-    let content_type = response
-        .headers()
-        .get("content-type")
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("")
-        .to_string();
-    (
-        status,
-        content_type,
-        response.bytes().await.expect("body").to_vec(),
-    )
+    status_type_body(request.send().await.expect("request")).await
 }
 
 async fn bad_uploads_get_their_status_and_problem_and_store_nothing(backend: Backend) {

@@ -445,16 +445,7 @@ pub(crate) async fn get(
     if let Some(t) = token {
         request = request.bearer_auth(t);
     }
-    let response = request.send().await.expect("GET request");
-    let status = response.status().as_u16();
-    let content_type = response
-        .headers()
-        .get("content-type")
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("")
-        .to_string();
-    let body = response.bytes().await.expect("GET body").to_vec();
-    (status, content_type, body)
+    status_type_body(request.send().await.expect("request")).await
 }
 
 /// GETs a path and parses JSON.
@@ -498,4 +489,20 @@ pub(crate) fn check_snapshot(name: &str, actual: &str) {
         expected == actual,
         "snapshot {name} changed; rerun with TRAPWISE_UPDATE_SNAPSHOTS=1 if intended\n--- expected\n{expected}\n--- actual\n{actual}"
     );
+}
+
+/// The status, content type and body of an answer.
+pub(crate) async fn status_type_body(response: reqwest::Response) -> (u16, String, Vec<u8>) {
+    let status = response.status().as_u16();
+    let content_type = response
+        .headers()
+        .get("content-type")
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("")
+        .to_string();
+    (
+        status,
+        content_type,
+        response.bytes().await.expect("body").to_vec(),
+    )
 }
